@@ -1,0 +1,44 @@
+# One command sets everything up and does the job: `make demo`, `make test`.
+# Targets create the virtual environment in .venv and install what they need.
+
+PYTHON ?= python3
+VENV ?= .venv
+BIN := $(VENV)/bin
+STAMP := $(VENV)/.installed
+
+.PHONY: setup demo cli-demo lab test lint bench validation clean
+
+setup: $(STAMP)
+
+$(STAMP): pyproject.toml
+	$(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -e ".[app,test]"
+	touch $(STAMP)
+
+## demo: run the built-in demo scenario on the command line
+demo: setup
+	$(BIN)/circlesim run scenarios/flow_reduction_sevoflurane.toml
+
+## cli-demo: the same scenario on the command line
+cli-demo: setup
+	$(BIN)/circlesim run scenarios/flow_reduction_sevoflurane.toml
+
+## test: the whole test suite
+test: setup
+	$(BIN)/python -m pytest -q
+
+## lint: ruff over the project
+lint: setup
+	$(BIN)/ruff check .
+
+## bench: speed benchmarks (ratios against a reference run in the same process)
+bench: setup
+	$(BIN)/python benchmarks/run.py
+
+## validation: regenerate docs/validation.md from the published checks
+validation: setup
+	$(BIN)/python -m circlesim.validation_table docs/validation.md
+
+clean:
+	rm -rf $(VENV) build *.egg-info .pytest_cache out

@@ -1,0 +1,87 @@
+"""``circlesim run SCENARIO.toml``: summary on the terminal and the time series as CSV."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from ..outcomes import summarise
+from ..scenario import load_scenario
+from .common import caution_banner, free_path
+
+
+def add_parser(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("run", help="run one scenario: print a summary and write a CSV",
+                       description="Run a scenario file, print its summary (time to target "
+                                   "end-tidal, end-tidal agent and FIO2 at chosen times, agent "
+                                   "used, warnings) and write the time series as CSV.")
+    p.add_argument("scenario", type=Path, help="scenario TOML file")
+    p.add_argument("--csv", type=Path, default=None,
+                   help="CSV path (default out/<scenario>.csv; an existing file is never "
+                        "replaced unless --overwrite is given, a free name is chosen instead)")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing CSV file")
+    p.add_argument("--interval", type=float, default=0.1, help="output interval, min")
+    p.add_argument("--times", type=str, default=None,
+                   help="comma-separated report times in min (default from the scenario)")
+    p.set_defaults(handler=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    scenario = load_scenario(args.scenario)
+    result = scenario.simulate(output_interval_min=args.interval)
+    times = scenario.report.report_times_min
+    if args.times:
+        try:
+            times = tuple(float(x) for x in args.times.split(","))
+        except ValueError:
+            from ..validation import InputError
+
+            raise InputError(f"--times must be comma-separated minutes; got {args.times!r}."
+                             ) from None
+    summary = summarise(result, target_end_tidal_mac=scenario.report.target_end_tidal_mac,
+                        report_times_min=times, fio2_threshold=scenario.report.fio2_threshold)
+    print(format_summary(scenario, result, summary))
+    if args.csv is not None:
+        path = args.csv if args.overwrite else free_path(args.csv)
+    else:
+        path = free_path(Path("out") / f"{args.scenario.stem}.csv")
+    written = result.to_csv(path, overwrite=args.overwrite)
+    print(f"\nTime series written to {written}")
+    return 0
+
+
+def format_summary(scenario, result, s) -> str:
+    """Terminal text for one run."""
+    p = result.patient
+    lines = [f"== {scenario.title or scenario.plan.name} ==" ]
+    if scenario.question:
+        lines.append(f"Question: {scenario.question}")
+    lines.append(f"Patient: {p.weight_kg:g} kg, {p.height_cm:g} cm, {p.age_years:g} y, {p.sex}; "
+                 f"VO2 used {s.vo2_ml_min:.0f} mL/min, cardiac output {p.cardiac_output:.1f} "
+                 f"L/min, FRC {p.frc:.2f} L")
+    lines.append(f"Agent: {s.agent} ({result.vaporizer.placement} the circle); age-adjusted "
+                 f"MAC {s.mac_percent:.2f} %")
+    if s.time_to_target_min is None:
+        lines.append(f"End-tidal target {s.target_end_tidal_percent:.2f} % "
+                     "is not reached during the plan.")
+    else:
+        lines.append(f"End-tidal target {s.target_end_tidal_percent:.2f} % reached at "
+                     f"{s.time_to_target_min:.1f} min.")
+    lines.append("   time min   end-tidal agent %   FIO2")
+    for t in s.end_tidal_at:
+        lines.append(f"   {t:8.1f}   {s.end_tidal_at[t]:17.2f}   {s.fio2_at[t]:.3f}")
+    lines.append(f"Lowest FIO2 {s.lowest_fio2:.3f} at {s.lowest_fio2_time_min:.1f} min; "
+                 f"{s.minutes_below_fio2_threshold:.1f} min below "
+                 f"{scenario.report.fio2_threshold:.2f}.")
+    lines.append(f"Liquid {s.agent}: {s.agent_delivered_ml:.1f} mL delivered "
+                 f"({s.agent_delivered_g:.1f} g), {s.agent_vented_ml:.1f} mL vented, "
+                 f"{s.agent_uptake_ml:.1f} mL taken up.")
+    lines.append(f"Absorbent used: {s.absorbent_used_percent:.0f} % of the canister.")
+    if result.alerts:
+        lines.append("Warnings:")
+        lines.extend(f" - {a}" for a in result.alerts)
+    else:
+        lines.append("Warnings: none raised by the alert rules.")
+    lines.append("")
+    lines.append(caution_banner())
+    return "\n".join(lines)
