@@ -42,6 +42,9 @@ def write_text_atomic(path: str | os.PathLike, text: str, *, overwrite: bool = F
             "(overwrite=True, or --overwrite on the command line).")
     target.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)
     try:
         with os.fdopen(fd, "w", encoding="utf-8", newline="") as handle:
             handle.write(text)
