@@ -120,6 +120,22 @@ def _overfill(r: Result) -> np.ndarray:
     return np.where(r.valve_closed, r.vented_l_min, 0.0)
 
 
+def _fresh_o2_fraction(r: Result) -> np.ndarray:
+    """O2 fraction of the flowmeter gas (vapour from a plenum vaporizer excluded)."""
+    agent = r.fresh_gas_by_gas_stpd[:, r.gas_index("agent")]
+    return r.fresh_gas_by_gas_stpd[:, 0] / np.maximum(r.fresh_gas_stpd - agent, 1e-12)
+
+
+def _fresh_gas_surplus(r: Result) -> np.ndarray:
+    """O2, air and N2O flows minus the patient's uptake of O2, N2 and N2O, the leak and the lost
+    sample gas, L/min at flowmeter conditions; below 0 the circuit loses gas. The agent is left
+    out on both sides (vaporizer output or injected liquid replaces what is taken up)."""
+    ia = r.gas_index("agent")
+    carrier = r.fresh_gas_stpd - r.fresh_gas_by_gas_stpd[:, ia]
+    uptake = r.uptake_stpd[:, 0] + r.uptake_stpd[:, 2] + r.uptake_stpd[:, 3]
+    return (carrier - uptake - r.leak_stpd - r.sample_lost_stpd) / r.k_circuit
+
+
 #: Named series that rules can watch: name -> function of a Result giving shape (T,).
 SERIES: dict[str, Callable[[Result], np.ndarray]] = {
     "inspired_o2_fraction": _inspired(0),
@@ -131,6 +147,8 @@ SERIES: dict[str, Callable[[Result], np.ndarray]] = {
     "fresh_gas_while_agent_l_min": _flow_while_agent,
     "mac_hours_at_1_to_2_l_min": _mac_hours_at_1_to_2,
     "end_tidal_agent_mac": lambda r: r.end_tidal[:, r.gas_index("agent")] * 100.0 / r.mac_percent,
+    "fresh_gas_o2_fraction": _fresh_o2_fraction,
+    "fresh_gas_surplus_l_min": _fresh_gas_surplus,
 }
 
 SEVOFLURANE_LABEL = ("US sevoflurane labelling (secondary and memory; check the current label): "
@@ -138,8 +156,9 @@ SEVOFLURANE_LABEL = ("US sevoflurane labelling (secondary and memory; check the 
                      "exceed 2 MAC-hours at 1 to < 2 L/min")
 
 
-def default_rules(fio2_threshold: float = 0.30, inspired_co2_kpa: float = 0.5) -> tuple[
-        AlertRule, ...]:
+def default_rules(fio2_threshold: float = 0.30, inspired_co2_kpa: float = 0.5,
+                  fresh_o2_minimum: float | None = None,
+                  fresh_gas_margin_l_min: float = -0.001) -> tuple[AlertRule, ...]:
     """The standard alert rules.
 
     Parameters
@@ -149,9 +168,25 @@ def default_rules(fio2_threshold: float = 0.30, inspired_co2_kpa: float = 0.5) -
         anaesthesia).
     inspired_co2_kpa : float, kPa, 0.1–5
         Inspired CO2 that signals spent absorbent (default 0.5 kPa, common practice).
+    fresh_o2_minimum : float or None, 0.21–1
+        The department's lowest O2 fraction of the fresh gas (flowmeter gas). Default: the
+        FIO2 threshold, because in steady state the inspired O2 fraction is always below the
+        fresh-gas fraction (mass balance, docs/oxygen.md), so fresh gas with less O2 than the
+        threshold cannot keep FIO2 above it. Set your local rule (e.g. a higher minimum for
+        minimal flow).
+    fresh_gas_margin_l_min : float, L/min, −1–5
+        Warn when the O2, air and N2O flows minus the patient's uptake of O2, N2O and N2, the
+        leak and the lost sample gas fall below this (the agent is left out: its vapour or
+        injected liquid replaces its uptake). Default −0.001 L/min: any shortfall larger than
+        round-off (1 mL/min, below a flowmeter's resolution), since then the bag empties (mass
+        balance).
     """
     check_number("default_rules", "fio2_threshold", fio2_threshold, Interval(0.21, 1.0))
     check_number("default_rules", "inspired_co2_kpa", inspired_co2_kpa, Interval(0.1, 5.0, "kPa"))
+    fresh_minimum = fio2_threshold if fresh_o2_minimum is None else fresh_o2_minimum
+    check_number("default_rules", "fresh_o2_minimum", fresh_minimum, Interval(0.21, 1.0))
+    check_number("default_rules", "fresh_gas_margin_l_min", fresh_gas_margin_l_min,
+                 Interval(-1.0, 5.0, "L/min"))
     return (
         AlertRule("fio2_low", "inspired_o2_fraction", "below", fio2_threshold, "",
                   "Inspired O2 fraction falls below {threshold:.2f} (lowest {extreme:.3f}). "
@@ -178,6 +213,17 @@ def default_rules(fio2_threshold: float = 0.30, inspired_co2_kpa: float = 0.5) -
                   "MAC-hours", "More than 2 MAC-hours of sevoflurane at 1 to < 2 L/min "
                   "(reaches {extreme:.1f}): outside the US product labelling.",
                   SEVOFLURANE_LABEL, agents=("sevoflurane",), severity="caution"),
+        AlertRule("fresh_o2_low", "fresh_gas_o2_fraction", "below", fresh_minimum, "",
+                  "Fresh gas O2 fraction {extreme:.2f} is below the local minimum "
+                  "{threshold:.2f}. Raise the O2 share of the fresh gas.",
+                  "user's local minimum; default the FIO2 threshold (mass balance: in steady "
+                  "state FIO2 stays below the fresh-gas O2 fraction, docs/oxygen.md)",
+                  severity="warning"),
+        AlertRule("fgf_below_uptake", "fresh_gas_surplus_l_min", "below", fresh_gas_margin_l_min,
+                  "L/min", "Fresh gas flow (O2, air, N2O) is less than the patient's estimated "
+                  "uptake of O2, N2O and N2 plus leak and lost sample gas (lowest surplus "
+                  "{extreme:+.3f} L/min): the bag empties unless the flow is raised.",
+                  "mass balance; default margin -0.001 L/min (round-off)", severity="warning"),
     )
 
 

@@ -95,6 +95,11 @@ def check_plan_against(plan: Plan, patient: Patient, circuit: Circuit,
                              circuit.valve)
     for i, seg in enumerate(segments):
         step_index = i
+        if seg.has_target:
+            raise InputError(
+                f"Plan.steps[{step_index}] holds an end-tidal target: the dial is chosen by the "
+                "target controller, so run the plan with circlesim.simulate (or "
+                "circlesim.control.simulate_with_targets), not with assemble directly.")
         if seg.dial_percent > vaporizer.max_dial:
             raise InputError(
                 f"Plan.steps[{step_index}].dial_percent must be a number from 0 to "

@@ -94,7 +94,10 @@ AUX_CIRCUIT_AMOUNT = 8  # L STPD of gas in the circuit
 AUX_EXHALED_TO_ABSORBER = 9  # exhaled gas passing the absorbent, L STPD/min
 N_AUX_SCALARS = 10
 
-_FULL_TOLERANCE = 1e-9
+#: Width of the smooth switch at the bag's limits, as a fraction of the full circuit amount.
+#: The switch is flat (zero slope) at the limit itself, so it adds no stiffness once the bag is
+#: full or empty, and it keeps the right-hand side continuous for implicit integrators.
+_WALL_BAND = 1e-3
 
 
 # ---- layout ----------------------------------------------------------------------------
@@ -204,6 +207,16 @@ def parameter_slices(lay: np.ndarray) -> dict[str, slice]:
 
 # ---- the right-hand side ---------------------------------------------------------------
 @njit(cache=True)
+def smoothstep(x: float) -> float:
+    """0 for x ≤ 0, 1 for x ≥ 1, and 3x² − 2x³ between (continuous slope)."""
+    if x <= 0.0:
+        return 0.0
+    if x >= 1.0:
+        return 1.0
+    return x * x * (3.0 - 2.0 * x)
+
+
+@njit(cache=True)
 def absorbent_efficiency(used_fraction: float, knee: float) -> float:
     """Fraction of the CO2 reaching the absorbent that it takes up.
 
@@ -213,8 +226,7 @@ def absorbent_efficiency(used_fraction: float, knee: float) -> float:
         return 1.0
     if used_fraction >= 1.0:
         return 0.0
-    x = (used_fraction - knee) / (1.0 - knee)
-    return 1.0 - x * x * (3.0 - 2.0 * x)
+    return 1.0 - smoothstep((used_fraction - knee) / (1.0 - knee))
 
 
 @njit(cache=True)
@@ -376,21 +388,25 @@ def evaluate(y, p, lay, dy, aux, work):
     n_max = p[P_CIRCUIT_MAX]
     n_min = p[P_CIRCUIT_MIN]
     beta = p[P_VENT_EXHALED]
+    band = _WALL_BAND * n_max
     vent = 0.0
-    if n_circuit >= n_max * (1.0 - _FULL_TOLERANCE) and net_without_vent > 0.0:
+    if net_without_vent > 0.0:
+        # the vent that would keep the circuit amount constant ...
         vent = net_without_vent
         if limb_total > 0.0:
             vent = net_without_vent / (1.0 - eta * beta * co2_back / limb_total)
         if beta * vent > limb_total or limb_total <= 0.0:
             vent = balance  # all exhaled gas vented; nothing reaches the absorbent
+        # ... opens smoothly over the last ``band`` litres before the bag is full
+        vent *= smoothstep((n_circuit - n_max) / band + 1.0)
     vented_exhaled = 0.0
     if limb_total > 0.0:
         vented_exhaled = min(beta * vent, limb_total) / limb_total
     vent_circuit = vent - vented_exhaled * limb_total
     absorbed = eta * (1.0 - vented_exhaled) * co2_back
     entrained = 0.0
-    if n_circuit <= n_min * (1.0 + _FULL_TOLERANCE) and net_without_vent < 0.0:
-        entrained = -net_without_vent
+    if net_without_vent < 0.0:
+        entrained = -net_without_vent * smoothstep((n_min - n_circuit) / band + 1.0)
     if n_circuit > n_max:
         vent_circuit += p[P_RELAXATION] * (n_circuit - n_max)
     if n_circuit < n_min:

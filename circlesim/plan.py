@@ -50,6 +50,14 @@ class Step:
         circuit's own setting at the start).
     note : str
         Free text shown with the step.
+    target_end_tidal_percent : float or None, vol%, 0.05–20
+        Target mode: hold end-tidal agent at this concentration instead of setting the dial.
+        A feedback controller (:mod:`circlesim.control`) chooses the dial. The target holds
+        until a later step sets a dial or another target.
+    target_mac : float or None, × age-adjusted MAC, 0.05–3
+        Target mode with the target as a multiple of the patient's age-adjusted MAC.
+    target_within_min : float or None, min, above 0 and at most 240
+        Time allowed, from this step, to reach the target; None: as fast as the dial allows.
     """
 
     time_min: float = field(metadata=bounded(0.0, MAX_PLAN_MIN, "min"))
@@ -65,6 +73,12 @@ class Step:
                                        metadata=optional_bounded(4.0, 60.0, "breaths/min"))
     valve: str | None = None
     note: str = ""
+    target_end_tidal_percent: float | None = field(
+        default=None, metadata=optional_bounded(0.05, 20.0, "vol%"))
+    target_mac: float | None = field(default=None,
+                                     metadata=optional_bounded(0.05, 3.0, "MAC"))
+    target_within_min: float | None = field(
+        default=None, metadata=optional_bounded(0.0, 240.0, "min", low_open=True))
 
     def __post_init__(self) -> None:
         check_fields(self)
@@ -73,6 +87,23 @@ class Step:
                                                            ("open", "closed")))
         if not isinstance(self.note, str):
             raise InputError(f"Step.note must be text; got {self.note!r}.")
+        if self.target_end_tidal_percent is not None and self.target_mac is not None:
+            raise InputError("Step.target_end_tidal_percent and Step.target_mac cannot both be "
+                             f"set (got {self.target_end_tidal_percent:g} vol% and "
+                             f"{self.target_mac:g} MAC); give the target one way.")
+        if self.has_target and self.dial_percent is not None:
+            raise InputError(f"Step.dial_percent ({self.dial_percent:g}) cannot be set together "
+                             "with an end-tidal target: in target mode the controller chooses "
+                             "the dial. Give either the dial or the target.")
+        if self.target_within_min is not None and not self.has_target:
+            raise InputError(f"Step.target_within_min ({self.target_within_min:g} min) needs a "
+                             "target on the same step (target_end_tidal_percent or "
+                             "target_mac).")
+
+    @property
+    def has_target(self) -> bool:
+        """Whether this step sets an end-tidal target (target mode)."""
+        return self.target_end_tidal_percent is not None or self.target_mac is not None
 
     def to_dict(self) -> dict:
         """The step as a plain dict without the settings it leaves unchanged."""
@@ -100,6 +131,14 @@ class Segment:
     tidal_volume_ml: float
     rate_per_min: float
     valve: str
+    target_end_tidal_percent: float | None = None
+    target_mac: float | None = None
+    target_by_min: float | None = None
+
+    @property
+    def has_target(self) -> bool:
+        """Whether the controller chooses the dial in this segment (target mode)."""
+        return self.target_end_tidal_percent is not None or self.target_mac is not None
 
     @property
     def fgf_l_min(self) -> float:
@@ -165,6 +204,10 @@ class Plan:
         valve : {"open", "closed"}
             Valve setting before any step changes it (the circuit's).
 
+        A target (target mode) holds from its step until a step sets a dial or another
+        target; a target segment's ``dial_percent`` is 0 (the controller chooses the dial) and
+        its ``target_by_min`` is the absolute time by which the target should be reached.
+
         Raises
         ------
         InputError
@@ -172,13 +215,23 @@ class Plan:
         """
         state = {"o2_l_min": 0.0, "air_l_min": 0.0, "n2o_l_min": 0.0, "dial_percent": 0.0,
                  "tidal_volume_ml": tidal_volume_ml, "rate_per_min": rate_per_min,
-                 "valve": valve}
+                 "valve": valve, "target_end_tidal_percent": None, "target_mac": None,
+                 "target_by_min": None}
+        settings = ("o2_l_min", "air_l_min", "n2o_l_min", "dial_percent", "tidal_volume_ml",
+                    "rate_per_min", "valve")
         out = []
         for i, step in enumerate(self.steps):
-            for key in state:
+            for key in settings:
                 value = getattr(step, key)
                 if value is not None:
                     state[key] = value
+            if step.dial_percent is not None or step.has_target:  # a new dial or target
+                state["target_end_tidal_percent"] = step.target_end_tidal_percent
+                state["target_mac"] = step.target_mac
+                state["target_by_min"] = (None if step.target_within_min is None
+                                          else step.time_min + step.target_within_min)
+            if step.has_target:
+                state["dial_percent"] = 0.0
             end = self.steps[i + 1].time_min if i + 1 < len(self.steps) else self.duration_min
             segment = Segment(start_min=step.time_min, end_min=end, inject_ml=step.inject_ml,
                               **state)
@@ -237,6 +290,11 @@ class Plan:
                                  "start of the plan).")
             steps.append(Step(**raw))
         return cls(steps=tuple(steps), **data)
+
+    @property
+    def has_targets(self) -> bool:
+        """Whether any step is in target mode (the controller then chooses the dial)."""
+        return any(s.has_target for s in self.steps)
 
     @property
     def step_times(self) -> tuple[float, ...]:

@@ -20,6 +20,7 @@ if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
     from .alerts import Alert
+    from .control import ControlReport
     from .equipment import Absorber, Circuit, Vaporizer
     from .patient import Patient
     from .plan import Plan
@@ -40,7 +41,7 @@ class SolverReport:
     evaluations : int
         Right-hand-side evaluations.
     steps : int
-        Accepted steps.
+        Accepted steps (0 when the method does not report them, as for scipy's).
     rejected : int
         Rejected steps.
     """
@@ -88,6 +89,8 @@ class Result:
         "sampled", "uptake"; and "absorbed" (CO2 only, others zero).
     held_in_circuit, held_in_patient : ndarray, shape (T, G)
         Amounts in the circuit and in the patient's lungs and tissues, L STPD.
+    held_at_start : ndarray, shape (G,)
+        Amount in circuit and patient at the start, before any injection at time 0, L STPD.
     states : ndarray, shape (T, n_state)
         Raw model states (see :mod:`circlesim.model`).
     final_state : ndarray
@@ -98,6 +101,9 @@ class Result:
         Circuit gas volume without the bag, and bag capacity, L.
     alerts : tuple of Alert
         Warnings raised by the alert rules, each with its start time.
+    control : ControlReport or None
+        For plans with end-tidal targets: the targets, the controller's plan and whether each
+        target was met (:mod:`circlesim.control`); None otherwise.
     solver : SolverReport
     patient, circuit, absorber, vaporizer, plan
         The inputs, so that the run can be reproduced.
@@ -130,6 +136,7 @@ class Result:
     cumulative: dict[str, np.ndarray]
     held_in_circuit: np.ndarray
     held_in_patient: np.ndarray
+    held_at_start: np.ndarray
     states: np.ndarray
     final_state: np.ndarray
     k_circuit: float
@@ -143,6 +150,7 @@ class Result:
     vaporizer: Vaporizer
     plan: Plan
     alerts: tuple[Alert, ...] = field(default=())
+    control: ControlReport | None = None
 
     # ---- names and conversions -----------------------------------------------------------
     @property
@@ -290,8 +298,7 @@ class Result:
         end = {k: v[-1] for k, v in self.cumulative.items()}
         metabolic = np.zeros(len(self.gases))
         metabolic[:2] = end["uptake"][:2]
-        held = (self.held_in_circuit[-1] + self.held_in_patient[-1]
-                - self.held_in_circuit[0] - self.held_in_patient[0])
+        held = self.held_in_circuit[-1] + self.held_in_patient[-1] - self.held_at_start
         inflow = end["delivered"] + end["entrained"]
         outflow = end["vented"] + end["leaked"] + end["sampled"] + end["absorbed"] + metabolic
         return {"in": inflow, "out": outflow, "held_change": held,
@@ -329,6 +336,10 @@ class Result:
         cols[f"{self.agent}_delivered_ml_liquid"] = self.agent_delivered_ml
         cols[f"{self.agent}_vented_ml_liquid"] = self.agent_vented_ml
         cols[f"{self.agent}_uptake_ml_liquid"] = self.agent_uptake_ml
+        if self.control is not None:
+            cols[f"target_end_tidal_{self.agent}_pct"] = self.control.target_series(
+                self.time_min)
+            cols[f"dial_{self.agent}_pct"] = self.control.dial_series(self.time_min)
         return pd.DataFrame(cols)
 
     def to_csv(self, path, *, overwrite: bool = False):

@@ -11,6 +11,7 @@ Layout of a scenario file::
     [plan]                      # name, description, duration_min
     [[plan.steps]]              # Step fields, one table per step
     [report]                    # fio2_threshold, target_end_tidal_mac, report_times_min
+    [prices]                    # optional user-set prices (circlesim.costs.Prices)
 
 Every section but ``[plan]`` may be left out (defaults apply). Unknown sections or keys are
 errors that name the key, so a typo never passes silently.
@@ -26,6 +27,7 @@ from typing import Any
 
 import tomli_w
 
+from .costs import Prices
 from .equipment import Absorber, Circuit, Vaporizer
 from .files import write_text_atomic
 from .patient import Patient
@@ -76,6 +78,7 @@ class Scenario:
     report: ReportSettings = field(default_factory=ReportSettings)
     title: str = ""
     question: str = ""
+    prices: Prices | None = None
 
     def simulate(self, **kwargs: Any):
         """Run :func:`circlesim.simulate` on this scenario."""
@@ -101,12 +104,15 @@ class Scenario:
                     continue
                 table[f.name] = list(value) if isinstance(value, tuple) else value
             out[name] = table
+        if self.prices is not None:
+            out["prices"] = {f.name: getattr(self.prices, f.name) for f in fields(self.prices)
+                             if getattr(self.prices, f.name) not in (None, "")}
         out["plan"] = self.plan.to_dict()
         return out
 
 
 _SECTIONS = {"patient": Patient, "circuit": Circuit, "absorber": Absorber,
-             "vaporizer": Vaporizer, "report": ReportSettings}
+             "vaporizer": Vaporizer, "report": ReportSettings, "prices": Prices}
 
 
 def _build(kind: type, section: str, data: Any, where: str):

@@ -85,24 +85,28 @@ def solve_states(inputs: ModelInputs, t_out: np.ndarray, *, method: str = "dopri
     y = y_start.copy()
     n_seg = len(inputs.params)
     states = np.empty((len(t_out), y.size))
-    evaluations = steps = 0
+    evaluations = 0
     for k in range(n_seg):
         y = y + inputs.jumps[k]
         t0, t1 = inputs.seg_times[k], inputs.seg_times[k + 1]
         last = k == n_seg - 1
         mask = (t_out >= t0) & ((t_out <= t1) if last else (t_out < t1))
-        sol = solve_ivp(m.derivatives, (t0, t1), y, method=method, dense_output=True,
-                        rtol=rtol, atol=inputs.atol, args=(inputs.params[k], inputs.lay))
+        t_eval = np.append(t_out[mask][t_out[mask] < t1], t1)
+        with np.errstate(over="ignore"):  # scipy's finite-difference Jacobian probes
+            sol = solve_ivp(m.derivatives, (t0, t1), y, method=method, t_eval=t_eval,
+                            rtol=rtol, atol=inputs.atol, args=(inputs.params[k], inputs.lay))
         if sol.status != 0:
             raise SimulationError(f"the integration failed in segment {k} "
                                   f"({t0:g}-{t1:g} min): {sol.message}")
-        if mask.any():
-            states[mask] = sol.sol(t_out[mask]).T
+        n_inside = int(np.count_nonzero(t_out[mask] < t1))
+        inside = np.flatnonzero(mask)
+        states[inside[:n_inside]] = sol.y[:, :n_inside].T
+        if inside.size > n_inside:  # the output at the very end of the plan
+            states[inside[n_inside:]] = sol.y[:, -1]
         y = sol.y[:, -1]
         evaluations += sol.nfev
-        steps += sol.t.size - 1
     return states, y, SolverReport(method, True, "The integration finished.", evaluations,
-                                   steps, 0)
+                                   0, 0)
 
 
 def build_result(inputs: ModelInputs, t_out: np.ndarray, states: np.ndarray,
@@ -122,8 +126,16 @@ def build_result(inputs: ModelInputs, t_out: np.ndarray, states: np.ndarray,
     circuit_total = circuit_amounts.sum(axis=1)
     tissue = states[:, sl["tissue"]].reshape(len(t_out), C, S)
     capacity = inputs.params[0][m.parameter_slices(lay)["tissue_capacity"]].reshape(C, S)
-    held_patient = states[:, sl["alveolar"]] * inputs.k_body * inputs.params[0][m.P_LUNG_VOLUME]
-    held_patient[:, m.FIRST_SOLUBLE:] += np.einsum("tcs,cs->ts", tissue, capacity)
+    lung_amount = inputs.k_body * inputs.params[0][m.P_LUNG_VOLUME]
+
+    def held_in_patient(y):
+        held = y[..., sl["alveolar"]] * lung_amount
+        tissue_y = y[..., sl["tissue"]].reshape(y.shape[:-1] + (C, S))
+        held[..., m.FIRST_SOLUBLE:] += np.einsum("...cs,cs->...s", tissue_y, capacity)
+        return held
+
+    held_patient = held_in_patient(states)
+    held_at_start = inputs.y0[sl["circuit"]] + held_in_patient(inputs.y0)
     cumulative = {name: states[:, sl[name]] for name in m.ACCUMULATOR_NAMES}
     absorbed = np.zeros((len(t_out), G))
     absorbed[:, m.CO2] = states[:, sl["absorbent"].start] - inputs.y0[sl["absorbent"].start]
@@ -157,6 +169,7 @@ def build_result(inputs: ModelInputs, t_out: np.ndarray, states: np.ndarray,
         cumulative=cumulative,
         held_in_circuit=circuit_amounts,
         held_in_patient=held_patient,
+        held_at_start=held_at_start,
         states=states,
         final_state=final,
         k_circuit=inputs.k_circuit,
@@ -182,6 +195,8 @@ def simulate(patient: Patient, circuit: Circuit, plan: Plan, *,
     patient : Patient
     circuit : Circuit
     plan : Plan
+        Steps with an end-tidal target (target mode) are handed to the feedback controller,
+        :func:`circlesim.control.simulate_with_targets`, with its default settings.
     vaporizer : Vaporizer, optional
         Default: a sevoflurane plenum vaporizer outside the circle.
     absorber : Absorber, optional
@@ -212,6 +227,13 @@ def simulate(patient: Patient, circuit: Circuit, plan: Plan, *,
     SimulationError
         If the integrator fails.
     """
+    if isinstance(plan, Plan) and plan.has_targets:  # target mode: the controller sets the dial
+        from .control import simulate_with_targets
+
+        return simulate_with_targets(patient, circuit, plan, vaporizer=vaporizer,
+                                     absorber=absorber, output_interval_min=output_interval_min,
+                                     method=method, rtol=rtol, initial_state=initial_state,
+                                     fio2_threshold=fio2_threshold, alert_rules=alert_rules)
     vaporizer = Vaporizer() if vaporizer is None else vaporizer
     absorber = Absorber() if absorber is None else absorber
     for name, obj, kind in (("patient", patient, Patient), ("circuit", circuit, Circuit),

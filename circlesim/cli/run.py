@@ -77,6 +77,10 @@ def format_summary(scenario, result, s) -> str:
                  f"({s.agent_delivered_g:.1f} g), {s.agent_vented_ml:.1f} mL vented, "
                  f"{s.agent_uptake_ml:.1f} mL taken up.")
     lines.append(f"Absorbent used: {s.absorbent_used_percent:.0f} % of the canister.")
+    if result.control is not None:  # target mode: what the controller did
+        lines.append("End-tidal targets (dial set by the target controller; its plan is in "
+                     "the CSV's dial column):")
+        lines.extend(f" - {t.message}" for t in result.control.targets)
     if result.alerts:
         lines.append("Warnings:")
         lines.extend(f" - {a}" for a in result.alerts)
