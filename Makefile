@@ -16,11 +16,20 @@ $(STAMP): pyproject.toml
 	$(BIN)/python -m pip install --quiet -e ".[app,test]"
 	touch $(STAMP)
 
-## demo: run the built-in demo scenario on the command line
-demo: setup
-	$(BIN)/circlesim run scenarios/flow_reduction_sevoflurane.toml
+PORT ?= 8866
 
-## cli-demo: the same scenario on the command line
+## demo: the planner app on the demo scenario, served by Voilà on 127.0.0.1 (Ctrl-C stops it)
+demo: setup
+	@echo "circlesim planner: open http://127.0.0.1:$(PORT)/ in your browser (Ctrl-C stops it)."
+	$(BIN)/voila notebooks/planner.ipynb --no-browser --port=$(PORT) --Voila.ip=127.0.0.1 \
+		--Voila.port_retries=0 \
+		--Voila.kernel_websocket_connection_class=circlesim.app.serving.NoDelayConnection
+
+## lab: JupyterLab with the notebooks, on 127.0.0.1
+lab: setup
+	$(BIN)/jupyter lab --ServerApp.root_dir=notebooks --ServerApp.ip=127.0.0.1
+
+## cli-demo: the demo scenario on the command line (summary and CSV)
 cli-demo: setup
 	$(BIN)/circlesim run scenarios/flow_reduction_sevoflurane.toml
 

@@ -9,6 +9,7 @@ axes (a comparison); the first is drawn solid, the others dashed.
 from __future__ import annotations
 
 from collections.abc import Sequence
+from typing import NamedTuple
 
 import numpy as np
 import plotly.graph_objects as go
@@ -17,7 +18,8 @@ from plotly.subplots import make_subplots
 from .properties import NITROUS_OXIDE, agent
 from .result import Result
 
-__all__ = ["PANELS", "timeline_figure", "timeline_traces", "update_timeline"]
+__all__ = ["PANELS", "refresh_timeline", "set_reference_lines", "timeline_figure",
+           "timeline_traces", "update_timeline"]
 
 #: Panel titles, top to bottom.
 PANELS = (
@@ -34,12 +36,34 @@ _FLOW_COLOURS = {"fresh": "#17becf", "vented": "#9467bd", "uptake": "#8c564b",
                  "bag": "#bcbd22"}
 
 
-def _line(x, y, name, colour, dash, row, unit, group, show_legend=True, width=2.0):
-    return (go.Scatter(x=x, y=y, name=name, mode="lines", legendgroup=group,
-                       showlegend=show_legend,
-                       line={"color": colour, "dash": dash, "width": width},
-                       hovertemplate=f"%{{y:.3g}} {unit} at %{{x:.1f}} min<extra>{name}</extra>"),
-            row)
+def _legend(row: int) -> str:
+    """Each panel has its own legend beside it."""
+    return "legend" if row == 1 else f"legend{row}"
+
+
+class _Line(NamedTuple):
+    """One curve before it becomes a plotly trace (cheap to build and compare)."""
+
+    x: np.ndarray
+    y: np.ndarray
+    name: str
+    colour: str
+    dash: str
+    row: int
+    unit: str
+    group: str
+    width: float
+
+    def trace(self) -> go.Scatter:
+        return go.Scatter(x=self.x, y=self.y, name=self.name, mode="lines",
+                          legendgroup=self.group, legend=_legend(self.row),
+                          line={"color": self.colour, "dash": self.dash, "width": self.width},
+                          hovertemplate=f"%{{y:.3g}} {self.unit} at %{{x:.1f}} min"
+                                        f"<extra>{self.name}</extra>")
+
+
+def _line(x, y, name, colour, dash, row, unit, group, width=2.0) -> _Line:
+    return _Line(x, y, name, colour, dash, row, unit, group, width)
 
 
 def timeline_traces(result: Result, label: str = "", dash: str = "solid") -> list[tuple]:
@@ -48,6 +72,10 @@ def timeline_traces(result: Result, label: str = "", dash: str = "solid") -> lis
     The order and count depend only on the agent, so a figure can be updated in place when
     the same kind of result changes.
     """
+    return [(line.trace(), line.row) for line in _lines(result, label, dash)]
+
+
+def _lines(result: Result, label: str, dash: str) -> list[_Line]:
     t = result.time_min
     tag = f" ({label})" if label else ""
     colour = agent(result.agent).colour
@@ -110,21 +138,78 @@ def timeline_figure(results: Sequence[Result], labels: Sequence[str] | None = No
     for k, (result, label) in enumerate(zip(results, labels, strict=True)):
         for trace, row in timeline_traces(result, label, _DASHES[k % len(_DASHES)]):
             fig.add_trace(trace, row=row, col=1)
-    first = results[0]
-    mac = first.mac_percent
-    for multiple in (0.5, 1.0, 1.5):
-        fig.add_hline(y=multiple * mac, line={"color": "#bbbbbb", "dash": "dot", "width": 1},
-                      annotation_text=f"{multiple:g} MAC ({multiple * mac:.2f} %)",
-                      annotation_position="top left", row=1, col=1)
-    if fio2_threshold is not None:
-        fig.add_hline(y=fio2_threshold, line={"color": "#d62728", "dash": "dash", "width": 1},
-                      annotation_text=f"FIO2 threshold {fio2_threshold:.2f}",
-                      annotation_position="bottom left", row=2, col=1)
+    set_reference_lines(fig, results[0].mac_percent, fio2_threshold)
     fig.update_xaxes(title_text="time (min)", row=len(PANELS), col=1)
     fig.update_layout(height=height, hovermode="x unified", margin={"l": 60, "r": 20, "t": 40,
-                                                                    "b": 40},
-                      legend={"orientation": "v", "x": 1.02, "y": 1.0})
+                                                                    "b": 40})
+    for row in range(1, len(PANELS) + 1):
+        low, top = fig.layout["yaxis" if row == 1 else f"yaxis{row}"].domain
+        # A legend longer than its panel (many results compared) scrolls instead of
+        # running into the next panel's legend.
+        fig.update_layout({_legend(row): {"x": 1.01, "xanchor": "left", "y": top,
+                                          "yanchor": "top", "font": {"size": 11},
+                                          "tracegroupgap": 2, "groupclick": "toggleitem",
+                                          "maxheight": max(top - low, 0.05)}})
     return go.FigureWidget(fig) if widget else fig
+
+
+_MAC_MULTIPLES = (0.5, 1.0, 1.5)
+_LINE_NAMES = {*(f"mac-{m:g}" for m in _MAC_MULTIPLES), "fio2-threshold"}
+
+
+def set_reference_lines(fig: go.Figure, mac_percent: float,
+                        fio2_threshold: float | None) -> None:
+    """Draw, or move in place, the age-adjusted MAC lines and the FIO2 threshold line.
+
+    Parameters
+    ----------
+    fig : plotly Figure or FigureWidget made by :func:`timeline_figure`
+    mac_percent : float, vol%
+        Age-adjusted MAC of the (first) result's agent and patient.
+    fio2_threshold : float or None, fraction 0.21–1
+        None leaves the threshold line out (or hides an existing one).
+    """
+    wanted = {f"mac-{m:g}": (m * mac_percent, f"{m:g} MAC{' age-adjusted' if m == 1 else ''} "
+                                              f"({m * mac_percent:.2f} %)")
+              for m in _MAC_MULTIPLES}
+    if fio2_threshold is not None:
+        wanted["fio2-threshold"] = (fio2_threshold, f"FIO2 threshold {fio2_threshold:.2f}")
+    # The lines' settings are kept in layout.meta, so an unchanged figure costs one lookup.
+    meta = fig.layout.meta if isinstance(fig.layout.meta, dict) else {}
+    key = [float(mac_percent), None if fio2_threshold is None else float(fio2_threshold)]
+    if meta.get("reference_lines") == key:
+        return
+    fig.layout.meta = {**meta, "reference_lines": key}
+    shapes, notes = fig.layout.shapes, fig.layout.annotations
+    present = {shape.name for shape in shapes}
+    for shape in shapes:
+        show = shape.name in wanted
+        if show and shape.y0 != wanted[shape.name][0]:
+            shape.y0 = shape.y1 = wanted[shape.name][0]
+        if shape.name in _LINE_NAMES and shape.visible is not False and not show:
+            shape.visible = False
+        elif show and shape.visible is False:
+            shape.visible = True
+    for note in notes:
+        show = note.name in wanted
+        if show and note.y != wanted[note.name][0]:
+            note.y, note.text = wanted[note.name]
+        if note.name in _LINE_NAMES and note.visible is not False and not show:
+            note.visible = False
+        elif show and note.visible is False:
+            note.visible = True
+    for name, (y, text) in wanted.items():
+        if name in present:
+            continue
+        if name == "fio2-threshold":
+            fig.add_hline(y=y, name=name, line={"color": "#d62728", "dash": "dash", "width": 1},
+                          annotation_text=text, annotation_name=name,
+                          annotation_position="bottom left", row=2, col=1)
+        else:
+            fig.add_hline(y=y, name=name, line={"color": "#bbbbbb", "dash": "dot", "width": 1},
+                          annotation_text=text, annotation_name=name,
+                          annotation_font={"size": 10, "color": "#777777"},
+                          annotation_position="top right", row=1, col=1)
 
 
 def update_timeline(fig: go.Figure, results: Sequence[Result]) -> bool:
@@ -133,8 +218,8 @@ def update_timeline(fig: go.Figure, results: Sequence[Result]) -> bool:
     Returns False (and changes nothing) if the number or kind of traces differs, in which case
     the caller should rebuild the figure.
     """
-    new = [trace for k, r in enumerate(results)
-           for trace, _ in timeline_traces(r, "", _DASHES[k % len(_DASHES)])]
+    new = [line for k, r in enumerate(results)
+           for line in _lines(r, "", _DASHES[k % len(_DASHES)])]
     if len(new) != len(fig.data):
         return False
     with fig.batch_update():
@@ -142,3 +227,42 @@ def update_timeline(fig: go.Figure, results: Sequence[Result]) -> bool:
             old.x = trace.x
             old.y = trace.y
     return True
+
+
+def refresh_timeline(fig: go.Figure, results: Sequence[Result],
+                     labels: Sequence[str] | None = None, *,
+                     fio2_threshold: float | None = 0.30) -> None:
+    """Bring a figure made by :func:`timeline_figure` up to date in place.
+
+    Curves of the same kind are given new data; when the set of curves changes (another agent,
+    a comparison added or removed) the curves are replaced within the same figure object, so a
+    ``FigureWidget`` on screen stays the same widget. The MAC and FIO2 lines follow.
+
+    Parameters
+    ----------
+    fig : plotly Figure or FigureWidget
+    results : sequence of Result
+        Drawn in order; the first solid, the others dashed.
+    labels : sequence of str, optional
+    fio2_threshold : float or None, fraction
+    """
+    if not results:
+        raise ValueError("results must hold at least one result; got none.")
+    labels = list(labels) if labels is not None else [""] * len(results)
+    lines = [line for k, (result, label) in enumerate(zip(results, labels, strict=True))
+             for line in _lines(result, label, _DASHES[k % len(_DASHES)])]
+    same = len(lines) == len(fig.data) and all(
+        old.name == new.name for old, new in zip(fig.data, lines, strict=True))
+    if same:
+        with fig.batch_update():
+            for old, new in zip(fig.data, lines, strict=True):
+                if len(old.x) != len(new.x) or not np.array_equal(old.x, new.x):
+                    old.x = new.x
+                old.y = new.y
+            set_reference_lines(fig, results[0].mac_percent, fio2_threshold)
+        return
+    fig.data = ()
+    fig.add_traces([line.trace() for line in lines], rows=[line.row for line in lines],
+                   cols=[1] * len(lines))
+    with fig.batch_update():
+        set_reference_lines(fig, results[0].mac_percent, fio2_threshold)

@@ -1,0 +1,93 @@
+"""The outcomes table: the current plan alone, or beside a reference plan with differences.
+
+Values come from :func:`circlesim.outcomes.summarise` (see :class:`~circlesim.app.runner.
+Prediction`); this module only lays them out.
+"""
+
+from __future__ import annotations
+
+import html
+from collections.abc import Callable
+from dataclasses import dataclass
+
+from ..outcomes import CaseSummary
+from .runner import Prediction
+
+__all__ = ["METRICS", "Metric", "outcome_table", "table_html"]
+
+
+@dataclass(frozen=True)
+class Metric:
+    """One row of the table.
+
+    Parameters
+    ----------
+    label : str
+    value : callable taking CaseSummary, returning float or None
+        None means "does not happen" (e.g. the target is never reached).
+    fmt : str
+        Format of the value, e.g. "{:.1f} min".
+    missing : str
+        Shown for None.
+    """
+
+    label: str
+    value: Callable[[CaseSummary], float | None]
+    fmt: str
+    missing: str = "—"
+
+    def text(self, summary: CaseSummary) -> str:
+        v = self.value(summary)
+        return self.missing if v is None else self.fmt.format(v)
+
+    def difference(self, current: CaseSummary, reference: CaseSummary) -> str:
+        a, b = self.value(current), self.value(reference)
+        if a is None or b is None:
+            return "—"
+        size = self.fmt.format(abs(a - b))
+        if size == self.fmt.format(0.0):
+            return size  # no sign on a difference that rounds to zero
+        return ("+" if a > b else "-") + size
+
+
+METRICS: tuple[Metric, ...] = (
+    Metric("Time to end-tidal target", lambda s: s.time_to_target_min, "{:.1f} min",
+           "not reached"),
+    Metric("Liquid agent used", lambda s: s.agent_delivered_ml, "{:.1f} mL"),
+    Metric("Agent vented to scavenging", lambda s: s.agent_vented_ml, "{:.1f} mL"),
+    Metric("Lowest FIO2", lambda s: s.lowest_fio2, "{:.3f}"),
+    Metric("Time below FIO2 threshold", lambda s: s.minutes_below_fio2_threshold, "{:.1f} min"),
+    Metric("Absorbent used", lambda s: s.absorbent_used_percent, "{:.0f} %"),
+)
+
+
+def outcome_table(current: Prediction, reference: Prediction | None = None) -> tuple[
+        list[str], list[list[str]]]:
+    """Header and rows: one column for the current plan, or reference, current, difference.
+
+    The target row names the target in vol% (it depends on the patient's age-adjusted MAC).
+    """
+    s = current.summary
+    target = (f"Time to end-tidal target ({current.scenario.report.target_end_tidal_mac:g} MAC "
+              f"= {s.target_end_tidal_percent:.2f} % {s.agent})")
+    rows = []
+    for m in METRICS:
+        label = target if m.label == "Time to end-tidal target" else m.label
+        if reference is None:
+            rows.append([label, m.text(s)])
+        else:
+            r = reference.summary
+            rows.append([label, m.text(r), m.text(s), m.difference(s, r)])
+    if reference is None:
+        return ["Outcome", "current plan"], rows
+    return ["Outcome", "reference plan", "current plan", "difference"], rows
+
+
+def table_html(header: list[str], rows: list[list[str]], title: str = "") -> str:
+    """A small HTML table."""
+    head = "".join(f"<th>{html.escape(h)}</th>" for h in header)
+    body = "".join("<tr>" + "".join(f"<td>{html.escape(c)}</td>" for c in row) + "</tr>"
+                   for row in rows)
+    caption = f"<div class='cs-panel-title'>{html.escape(title)}</div>" if title else ""
+    return (f"{caption}<table class='cs-table'><thead><tr>{head}</tr></thead>"
+            f"<tbody>{body}</tbody></table>")
