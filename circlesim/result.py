@@ -216,16 +216,19 @@ class Result:
         """Partial pressure (kPa) in the lungs or body of a dry-gas fraction series."""
         return np.asarray(fraction) * self.dry_pressure_kpa
 
-    @property
-    def valve_closed(self) -> np.ndarray:
-        """Whether the pressure-limiting valve is closed at each output time, shape (T,)."""
+    def segment_values(self, setting: str) -> np.ndarray:
+        """A plan setting (a :class:`~circlesim.plan.Segment` field) at each output time."""
         segments = self.plan.segments(self.patient.default_tidal_volume_ml,
                                       self.patient.default_rate_per_min, self.circuit.valve)
         starts = np.array([s.start_min for s in segments])
         index = np.clip(np.searchsorted(starts, self.time_min, side="right") - 1, 0,
                         len(segments) - 1)
-        closed = np.array([s.valve == "closed" for s in segments])
-        return closed[index]
+        return np.array([getattr(s, setting) for s in segments])[index]
+
+    @property
+    def valve_closed(self) -> np.ndarray:
+        """Whether the pressure-limiting valve is closed at each output time, shape (T,)."""
+        return self.segment_values("valve") == "closed"
 
     @property
     def fresh_gas_l_min(self) -> np.ndarray:
@@ -234,9 +237,8 @@ class Result:
 
     @property
     def flowmeter_total_l_min(self) -> np.ndarray:
-        """Total of the O2, air and N2O flowmeters (vapour excluded), L/min."""
-        agent = self.fresh_gas_by_gas_stpd[:, self.gas_index("agent")]
-        return (self.fresh_gas_stpd - agent) / self.k_circuit
+        """Total of the O2, air and N2O flowmeters (vapour excluded), L/min, as set."""
+        return self.segment_values("fgf_l_min")
 
     @property
     def vented_l_min(self) -> np.ndarray:

@@ -20,9 +20,13 @@ from __future__ import annotations
 import numpy as np
 from numba import njit, prange
 
+from . import model
+from .compiled_cache import discard_stale_cache
 from .model import evaluate, work_size
 
-__all__ = ["STATUS_MESSAGES", "integrate", "integrate_batch"]
+discard_stale_cache(__file__, [model.__file__])
+
+__all__ = ["STATUS_MESSAGES", "integrate", "integrate_batch", "integrate_batch_serial"]
 
 STATUS_OK = 0
 STATUS_TOO_MANY_STEPS = 1
@@ -274,6 +278,30 @@ def integrate_batch(y0, params, seg_times, jumps, lay, t_out, atol, rtol, h_max,
     final = np.empty((batch, n))
     stats = np.empty((batch, 4), dtype=np.int64)
     for b in prange(batch):
+        s, f, st = integrate(y0[b], params[b], seg_times[b], jumps[b], lay, t_out, atol,
+                             rtol, h_max, max_steps)
+        states[b] = s
+        final[b] = f
+        stats[b] = st
+    return states, final, stats
+
+
+@njit(cache=True)
+def integrate_batch_serial(y0, params, seg_times, jumps, lay, t_out, atol, rtol, h_max,
+                           max_steps):
+    """:func:`integrate_batch` on the calling thread only, one member after another.
+
+    For callers that already run in parallel (worker processes, Dask worker threads), where
+    numba's own threads would oversubscribe the cores or, with numba's ``workqueue`` threading
+    layer, must not be launched from several threads at once. Same arguments and results as
+    :func:`integrate_batch`, member for member identical.
+    """
+    batch = y0.shape[0]
+    n = y0.shape[1]
+    states = np.empty((batch, t_out.size, n))
+    final = np.empty((batch, n))
+    stats = np.empty((batch, 4), dtype=np.int64)
+    for b in range(batch):
         s, f, st = integrate(y0[b], params[b], seg_times[b], jumps[b], lay, t_out, atol,
                              rtol, h_max, max_steps)
         states[b] = s

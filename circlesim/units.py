@@ -52,6 +52,7 @@ __all__ = [
     "liquid_ml_to_vapour_l_stpd",
     "ml_to_l",
     "mmhg_to_kpa",
+    "molar_volume_l",
     "percent_to_fraction",
     "vapour_l_stpd_to_grams",
     "vapour_l_stpd_to_liquid_ml",
@@ -86,6 +87,15 @@ def fraction_to_percent(fraction):
 def ml_to_l(volume_ml):
     """Litres from millilitres."""
     return np.asarray(volume_ml, dtype=float) / 1000.0
+
+
+def molar_volume_l(temperature_c: float = 0.0,
+                   pressure_kpa: float = STANDARD_PRESSURE_KPA) -> float:
+    """Molar volume of an ideal gas, L/mol, at ``temperature_c`` (°C) and ``pressure_kpa``.
+
+    ``R T / P``: 22.414 L/mol at STPD, 24.055 L/mol at 20 °C and 101.325 kPa.
+    """
+    return GAS_CONSTANT * kelvin(temperature_c) / pressure_kpa
 
 
 def atpd_to_stpd(temperature_c: float, pressure_kpa: float = STANDARD_PRESSURE_KPA) -> float:

@@ -16,7 +16,7 @@ from ..simulate import SimulationError
 from ..validation import InputError
 
 #: Subcommand modules, in the order ``circlesim --help`` lists them.
-COMMANDS = ("run",)
+COMMANDS = ("run", "compare", "oxygen", "population", "advise", "emerge")
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -53,7 +53,7 @@ def run(args: argparse.Namespace) -> int:
 def format_summary(scenario, result, s) -> str:
     """Terminal text for one run."""
     p = result.patient
-    lines = [f"== {scenario.title or scenario.plan.name} ==" ]
+    lines = [f"== {scenario.title or scenario.plan.name} =="]
     if scenario.question:
         lines.append(f"Question: {scenario.question}")
     lines.append(f"Patient: {p.weight_kg:g} kg, {p.height_cm:g} cm, {p.age_years:g} y, {p.sex}; "
@@ -76,7 +76,19 @@ def format_summary(scenario, result, s) -> str:
     lines.append(f"Liquid {s.agent}: {s.agent_delivered_ml:.1f} mL delivered "
                  f"({s.agent_delivered_g:.1f} g), {s.agent_vented_ml:.1f} mL vented, "
                  f"{s.agent_uptake_ml:.1f} mL taken up.")
-    lines.append(f"Absorbent used: {s.absorbent_used_percent:.0f} % of the canister.")
+    lines.append(f"MAC-hours: {s.mac_hours:.2f} (agent), {s.total_mac_hours:.2f} "
+                 "(agent + N2O).")
+    h = s.gwp_horizon_years
+    agent_co2e = ("not available (no published GWP)" if s.agent_co2e_kg is None
+                  else f"{s.agent_co2e_kg:.1f} kg")
+    lines.append(f"CO2-equivalent (GWP{h}): {s.agent} {agent_co2e}, N2O "
+                 f"{(s.n2o_co2e_kg or 0.0):.1f} kg ({s.n2o_used_l:.0f} L N2O).")
+    canister = ""
+    if s.canister is not None and s.canister.fresh_canister_min is not None:
+        canister = (f"; at the end-of-plan rate a fresh canister would last about "
+                    f"{s.canister.fresh_canister_min / 60.0:.1f} h (extrapolated)")
+    lines.append(f"Absorbent used: {s.absorbent_used_percent:.0f} % of the canister "
+                 f"({s.absorbent_used_g:.0f} g){canister}.")
     if result.control is not None:  # target mode: what the controller did
         lines.append("End-tidal targets (dial set by the target controller; its plan is in "
                      "the CSV's dial column):")
