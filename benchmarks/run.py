@@ -1,0 +1,232 @@
+"""Speed benchmarks, printed as a table of ratios against scipy's ``solve_ivp`` in the same run.
+
+Usage::
+
+    .venv/bin/python benchmarks/run.py            # full sizes (about a minute or two)
+    .venv/bin/python benchmarks/run.py --quick    # small sizes, to check that it runs
+
+(a) One 4-hour plan with 12 steps for a 70 kg adult: the median time of
+    :func:`circlesim.simulate` (inputs, integration, outputs, alerts) and of the bare compiled
+    integration (:func:`circlesim.solver.integrate`), beside the plain per-patient reference —
+    the same equations (:func:`circlesim.model.derivatives`) integrated by ``solve_ivp``
+    segment by segment, Radau at rtol 1e-10 (the accuracy reference) and LSODA at rtol 1e-6
+    (the same tolerance as circlesim's default). Accuracy: the largest difference in
+    end-tidal fractions (every gas) and FIO2 against the Radau reference, relative to each
+    series' peak.
+(b) 10,000 virtual patients over the same 4-hour plan (output every minute): the wall time of
+    a population run (sampling, batch integration, curves and outcomes) in this process on
+    numba's threads and on local worker processes, the per-patient speed-up over the
+    references, and the accuracy for a sample of the patients against Radau at rtol 1e-10.
+
+Goals (issue 7): (a) under 5 ms median for ``simulate``; (b) under 20 s on a 2-core machine;
+per patient at least 50 times faster than the ``solve_ivp`` reference. Issue 2's goal for (a):
+under 20 ms and within 1e-3 relative of the tight reference.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import statistics
+import sys
+import time
+from collections.abc import Callable
+
+import numpy as np
+
+import circlesim as cs
+from circlesim import model as m
+from circlesim.assembly import assemble
+from circlesim.batch import simulate_batch
+from circlesim.distributed import local_workers
+from circlesim.population import run_population
+from circlesim.simulate import MAX_STEPS, output_times, solve_states
+from circlesim.solver import integrate
+from circlesim.virtual_patients import sample_patients
+
+REFERENCE = ("Radau", 1e-10)
+MATCHED = ("LSODA", 1e-6)
+
+
+def four_hour_plan() -> cs.Plan:
+    """An invented 4-hour plan with 12 steps: wash-in, flow reduction, N2O on and off, trims."""
+    steps = [cs.Step(0, o2_l_min=2.0, air_l_min=4.0, dial_percent=6.0, note="wash-in")]
+    flows = [(0.5, 0.0, 0.0), (0.3, 0.0, 0.4), (0.3, 0.0, 0.4), (0.4, 0.2, 0.0)]
+    for k in range(1, 12):
+        o2, air, n2o = flows[k % len(flows)]
+        steps.append(cs.Step(10.0 + 20.0 * (k - 1), o2_l_min=o2, air_l_min=air, n2o_l_min=n2o,
+                             dial_percent=2.5 + 0.5 * (k % 3)))
+    return cs.Plan(steps, duration_min=240.0, name="four hours, twelve steps")
+
+
+def median_time(fn: Callable[[], object], repeats: int, warm_up: int = 5
+                ) -> tuple[float, float, object]:
+    """Median wall and CPU time of ``fn`` over ``repeats`` calls (s), and the last result.
+
+    ``warm_up`` untimed calls come first: the app and the advisor call the engine hundreds of
+    times, so the steady state is what counts (the first calls also load compiled code and
+    let the memory allocator settle).
+    """
+    for _ in range(warm_up):
+        fn()
+    wall, cpu = [], []
+    for _ in range(repeats):
+        t, c = time.perf_counter(), time.process_time()
+        out = fn()
+        wall.append(time.perf_counter() - t)
+        cpu.append(time.process_time() - c)
+    return statistics.median(wall), statistics.median(cpu), out
+
+
+def timed(fn: Callable[[], object]) -> tuple[float, float, object]:
+    """Wall and CPU time (s; CPU of this process, its threads and finished child processes)
+    of one call, and its result."""
+    t, c = time.perf_counter(), os.times()
+    out = fn()
+    d = os.times()
+    cpu = (d.user - c.user + d.system - c.system + d.children_user - c.children_user
+           + d.children_system - c.children_system)
+    return time.perf_counter() - t, cpu, out
+
+
+def relative_difference(states: np.ndarray, reference: np.ndarray, inputs,
+                        t_out: np.ndarray) -> float:
+    """Largest difference in end-tidal fractions and FIO2, relative to each series' peak."""
+    lay = inputs.lay
+    seg = np.clip(np.searchsorted(inputs.seg_times, t_out, side="right") - 1, 0,
+                  len(inputs.params) - 1).astype(np.int64)
+
+    def series(s):
+        fio2 = m.auxiliary_series(s, inputs.params, seg, lay)[:, m.aux_slices(lay)[
+            "inspired"]][:, m.O2]
+        return np.column_stack([s[:, m.state_slices(lay)["alveolar"]], fio2])
+
+    a, b = series(states), series(reference)
+    peak = np.abs(b).max(axis=0)
+    used = peak > 1e-9
+    return float((np.abs(a - b).max(axis=0)[used] / peak[used]).max())
+
+
+def bench_single(repeats: int) -> list[tuple]:
+    patient, circuit, vaporizer = cs.Patient(), cs.Circuit(), cs.Vaporizer("sevoflurane")
+    plan = four_hour_plan()
+    inputs = assemble(patient, circuit, cs.Absorber(), vaporizer, plan)
+    t_out = output_times(plan.duration_min, 0.1, plan.step_times)
+
+    def bare():
+        return integrate(inputs.y0, inputs.params, inputs.seg_times, inputs.jumps, inputs.lay,
+                         t_out, inputs.atol, 1e-6, 5.0, MAX_STEPS)
+
+    t_sim, c_sim, _ = median_time(
+        lambda: cs.simulate(patient, circuit, plan, vaporizer=vaporizer), repeats)
+    t_bare, c_bare, (ours, _, _) = median_time(bare, 4 * repeats)
+    t_ref, c_ref, (ref, _, _) = median_time(lambda: solve_states(
+        inputs, t_out, method=REFERENCE[0], rtol=REFERENCE[1]), max(1, repeats // 20),
+        warm_up=0)
+    t_matched, c_matched, _ = median_time(lambda: solve_states(
+        inputs, t_out, method=MATCHED[0], rtol=MATCHED[1]), max(3, repeats // 5), warm_up=1)
+    error = relative_difference(ours, ref, inputs, t_out)
+    ms = 1e3
+    return [
+        ("(a) simulate, 4 h / 12 steps", t_sim * ms, c_sim * ms, "ms", t_ref / t_sim,
+         t_matched / t_sim, "< 5 ms", t_sim < 0.005),
+        ("(a) bare compiled integration", t_bare * ms, c_bare * ms, "ms", t_ref / t_bare,
+         t_matched / t_bare, "", None),
+        (f"(a) solve_ivp {REFERENCE[0]} rtol {REFERENCE[1]:g} (reference)", t_ref * ms,
+         c_ref * ms, "ms", 1.0, t_matched / t_ref, "", None),
+        (f"(a) solve_ivp {MATCHED[0]} rtol {MATCHED[1]:g} (same tolerance)", t_matched * ms,
+         c_matched * ms, "ms", t_ref / t_matched, 1.0, "", None),
+        ("(a) max rel. difference ET & FIO2 vs reference", error, None, "", None, None,
+         "< 1e-3", error < 1e-3),
+    ]
+
+
+def bench_population(n: int, check: int) -> list[tuple]:
+    plan = four_hour_plan()
+    scenario = cs.Scenario(plan=plan, vaporizer=cs.Vaporizer("sevoflurane"))
+    t_sample, c_sample, people = timed(lambda: sample_patients(n, seed=7))
+    # warm-up (compilation is cached on disk, loading it is not timed)
+    run_population(scenario, people.patients[:4], workers=1, output_interval_min=1.0)
+    t_here, c_here, here = timed(lambda: run_population(
+        scenario, people, workers=1, output_interval_min=1.0, chunk_size=1000))
+    workers = local_workers()
+    t_spread, c_spread, spread = timed(lambda: run_population(
+        scenario, people, output_interval_min=1.0, workers=workers,
+        chunk_size=max(1, min(1000, -(-n // (4 * workers))))))
+    same = all(np.array_equal(here.curves[k], spread.curves[k]) for k in here.curves)
+    # per-patient references and accuracy on a sample of the patients
+    sample = people.patients[:: max(1, n // check)][:check]
+    refs, matched, errors = [], [], []
+    for p in sample:
+        inputs = assemble(p, scenario.circuit, scenario.absorber, scenario.vaporizer, plan)
+        t_out = output_times(plan.duration_min, 1.0, plan.step_times)
+        t0 = time.perf_counter()
+        ref = solve_states(inputs, t_out, method=REFERENCE[0], rtol=REFERENCE[1])[0]
+        refs.append(time.perf_counter() - t0)
+        t0 = time.perf_counter()
+        solve_states(inputs, t_out, method=MATCHED[0], rtol=MATCHED[1])
+        matched.append(time.perf_counter() - t0)
+        ours = simulate_batch(p, scenario.circuit, plan, vaporizer=scenario.vaporizer,
+                              output_interval_min=1.0).states[0]
+        errors.append(relative_difference(ours, ref, inputs, t_out))
+    ref, match = statistics.mean(refs) * n, statistics.mean(matched) * n
+    best = min(t_here, t_spread)
+    return [
+        (f"(b) sampling {n} patients", t_sample, c_sample, "s", None, None, "", None),
+        (f"(b) {n} patients x 4 h, this process", t_here, c_here, "s", ref / t_here,
+         match / t_here, "< 20 s", t_here < 20.0),
+        (f"(b) {n} patients x 4 h, {spread.where}", t_spread, c_spread, "s", ref / t_spread,
+         match / t_spread, "< 20 s", t_spread < 20.0),
+        ("(b) per patient, faster of the two", best / n * 1e3, None, "ms", ref / best,
+         match / best, ">= 50x", ref / best >= 50.0),
+        (f"(b) max rel. difference ET & FIO2, {len(sample)} patients", max(errors), None, "",
+         None, None, "< 1e-3", max(errors) < 1e-3),
+        ("(b) local processes give the same numbers", float(same), None, "", None, None, "",
+         same),
+    ]
+
+
+def format_table(rows: list[tuple]) -> str:
+    header = ("case", "wall", "CPU", "unit", f"x vs {REFERENCE[0]}", f"x vs {MATCHED[0]}",
+              "goal", "met")
+    lines = [header]
+    for case, wall, cpu, unit, r1, r2, goal, met in rows:
+        lines.append((case, f"{wall:.3g}", "" if cpu is None else f"{cpu:.3g}", unit,
+                      "" if r1 is None else f"{r1:.0f}", "" if r2 is None else f"{r2:.1f}",
+                      goal, "" if met is None else ("yes" if met else "NO")))
+    widths = [max(len(str(row[i])) for row in lines) for i in range(len(header))]
+    out = []
+    for k, row in enumerate(lines):
+        out.append("  ".join(str(c).ljust(w) if i == 0 else str(c).rjust(w)
+                             for i, (c, w) in enumerate(zip(row, widths, strict=True))))
+        if k == 0:
+            out.append("-" * len(out[0]))
+    return "\n".join(out)
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="small sizes, to check it runs")
+    parser.add_argument("--patients", type=int, default=None, help="population size for (b)")
+    args = parser.parse_args(argv)
+    n = args.patients or (200 if args.quick else 10_000)
+    repeats = 5 if args.quick else 50
+    load = os.getloadavg()[0] if hasattr(os, "getloadavg") else float("nan")
+    print(f"circlesim benchmarks: {os.cpu_count()} cores, load average {load:.1f} at start, "
+          f"Python {sys.version.split()[0]}, numpy {np.__version__}")
+    rows = bench_single(repeats)
+    rows += bench_population(n, 1 if args.quick else 5)
+    print(format_table(rows))
+    print("wall: elapsed time (median of repeats for (a)); CPU: processor time used by this "
+          "process, its threads and its worker processes (on a shared machine wall > CPU / "
+          "cores). Ratios: the reference's wall time divided by circlesim's (per patient for "
+          "(b)). Relative differences: largest |circlesim - reference| over time, divided by "
+          "the series' peak, over every gas's end-tidal fraction and FIO2. Goals are judged "
+          "on wall time.")
+    print(f"load average at the end {os.getloadavg()[0]:.1f}" if hasattr(os, "getloadavg")
+          else "")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

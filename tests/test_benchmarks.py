@@ -1,0 +1,25 @@
+"""The benchmark script runs from a clean clone (small sizes; no timing is asserted here —
+speed goals are reported by ``make bench``, not tested)."""
+
+import importlib.util
+from pathlib import Path
+
+BENCH = Path(__file__).resolve().parents[1] / "benchmarks" / "run.py"
+
+
+def test_benchmark_script_prints_its_table(capsys):
+    spec = importlib.util.spec_from_file_location("circlesim_benchmarks", BENCH)
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    assert module.four_hour_plan().steps[-1].time_min < 240.0
+    assert len(module.four_hour_plan().steps) == 12
+    assert module.main(["--quick", "--patients", "16"]) == 0
+    out = capsys.readouterr().out
+    for row in ("(a) simulate, 4 h / 12 steps", "(a) bare compiled integration",
+                "(a) solve_ivp Radau rtol 1e-10 (reference)",
+                "(a) max rel. difference ET & FIO2 vs reference",
+                "(b) 16 patients x 4 h, this process", "(b) per patient, faster of the two",
+                "(b) local processes give the same numbers"):
+        assert row in out, row
+    accuracy = [line for line in out.splitlines() if "max rel. difference" in line]
+    assert all(line.rstrip().endswith("yes") for line in accuracy)  # within 1e-3 of Radau
