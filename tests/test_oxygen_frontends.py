@@ -43,11 +43,11 @@ def test_cli_prints_the_table_and_writes_the_map(tmp_path, capsys):
 
 def test_cli_with_a_scenario_shows_the_plan_and_its_warnings(tmp_path, capsys):
     code = main(["oxygen", str(SCENARIO), "--flows", "0.5,1", "--steady-only", "--carrier",
-                 "air", "--threshold", "0.45", "--html", str(tmp_path / "s.html")])
+                 "air", "--threshold", "0.5", "--html", str(tmp_path / "s.html")])
     out = capsys.readouterr().out
     assert code == 0
     assert "== Plan:" in out and "Warnings:" in out
-    assert "Inspired O2 fraction falls below 0.45" in out  # an unsafe plan, still shown
+    assert "Inspired O2 fraction falls below 0.50" in out  # an unsafe plan, still shown
     assert "Oxygen course of the plan" in (tmp_path / "s.html").read_text(encoding="utf-8")
 
 
