@@ -199,9 +199,9 @@ def assemble(patient: Patient, circuit: Circuit, absorber: Absorber, vaporizer: 
     y0 = initial_state(lay, params[0], patient, circuit, absorber, k_circ)
     atol = np.empty(n_state)
     sl = m.state_slices(lay)
-    atol[sl["circuit"]] = 1e-9
-    atol[sl["alveolar"]] = 1e-10
-    atol[sl["tissue"]] = 1e-10
+    atol[sl["circuit"]] = 1e-12
+    atol[sl["alveolar"]] = 1e-12
+    atol[sl["tissue"]] = 1e-12
     atol[sl["absorbent"]] = 1e-7
     atol[sl["absorbent"].stop:] = 1e-7
     return ModelInputs(gases=gases, tissue_names=tuple(t.name for t in tissues),

@@ -37,8 +37,8 @@ GWP_HORIZONS = (20, 100)
 #: Default horizon, years. GWP20 is the horizon whose agent values were checked against their
 #: published source (Ryan & Nielsen 2010); choose 100 for the usual carbon-accounting horizon.
 DEFAULT_GWP_HORIZON = 20
-#: Molar volume Ryan & Nielsen's published grams imply, L/mol (DERIVED by back-calculation in
-#: the research notes: it reproduces all three CDE20 values within 0.3 %).
+#: Molar volume Ryan & Nielsen's published grams imply, L/mol (derived by back-calculation from
+#: their published grams and CDE20: it reproduces all three CDE20 values within 0.3 %).
 RYAN_NIELSEN_MOLAR_VOLUME_L = 24.0
 
 

@@ -44,6 +44,11 @@ RULES = {
                    "estimate, see docs/model.md)",
 }
 
+#: Plausible body-mass index range, kg/m² (common practice: below about 10 is starvation,
+#: above 80 is rarely seen).
+MIN_BMI = 8.0
+MAX_BMI = 90.0
+
 _LEAN_SHARE_VESSEL_RICH = 0.125
 _LEAN_SHARE_MUSCLE = 0.625
 _FAT_PERFUSION_L_MIN_KG = 0.0202
@@ -132,6 +137,11 @@ class Patient:
 
     def __post_init__(self) -> None:
         check_fields(self)
+        if not MIN_BMI <= self.bmi <= MAX_BMI:
+            raise InputError(
+                f"Patient weight_kg and height_cm give a body-mass index of {self.bmi:.1f} kg/m²; "
+                f"it must be from {MIN_BMI:g} to {MAX_BMI:g} kg/m² (got {self.weight_kg:g} kg "
+                f"and {self.height_cm:g} cm).")
         if not isinstance(self.intertissue_diffusion, bool):
             raise InputError("Patient.intertissue_diffusion must be true or false; got "
                              f"{self.intertissue_diffusion!r}.")

@@ -32,6 +32,8 @@ PANELS = (
 _DASHES = ("solid", "dash", "dot", "dashdot", "longdash")
 _O2_COLOUR = "#2ca02c"
 _N2_COLOUR = "#7f7f7f"
+_TARGET_COLOUR = "#009e8f"
+_DIAL_COLOUR = "#555555"
 _FLOW_COLOURS = {"fresh": "#17becf", "vented": "#9467bd", "uptake": "#8c564b",
                  "bag": "#bcbd22"}
 
@@ -53,24 +55,27 @@ class _Line(NamedTuple):
     unit: str
     group: str
     width: float
+    shape: str = "linear"
 
     def trace(self) -> go.Scatter:
         return go.Scatter(x=self.x, y=self.y, name=self.name, mode="lines",
                           legendgroup=self.group, legend=_legend(self.row),
-                          line={"color": self.colour, "dash": self.dash, "width": self.width},
+                          line={"color": self.colour, "dash": self.dash, "width": self.width,
+                                "shape": self.shape},
                           hovertemplate=f"%{{y:.3g}} {self.unit} at %{{x:.1f}} min"
                                         f"<extra>{self.name}</extra>")
 
 
-def _line(x, y, name, colour, dash, row, unit, group, width=2.0) -> _Line:
-    return _Line(x, y, name, colour, dash, row, unit, group, width)
+def _line(x, y, name, colour, dash, row, unit, group, width=2.0, shape="linear") -> _Line:
+    return _Line(x, y, name, colour, dash, row, unit, group, width, shape)
 
 
 def timeline_traces(result: Result, label: str = "", dash: str = "solid") -> list[tuple]:
     """The traces of one result as ``(trace, row)`` pairs, in a fixed order.
 
-    The order and count depend only on the agent, so a figure can be updated in place when
-    the same kind of result changes.
+    The order and count depend only on the agent and on target mode (a result with
+    ``result.control`` adds the end-tidal target and the dial the controller set to the agent
+    panel), so a figure can be updated in place when the same kind of result changes.
     """
     return [(line.trace(), line.row) for line in _lines(result, label, dash)]
 
@@ -110,6 +115,14 @@ def _lines(result: Result, label: str, dash: str) -> list[_Line]:
         _line(t, result.agent_uptake_ml, f"Taken up by patient{tag}", "#000000", dash, 5, "mL",
               label),
     ]
+    control = result.control
+    if control is not None:  # target mode: the target and the dial the controller chose
+        out[3:3] = [
+            _line(t, control.target_series(t), f"End-tidal target{tag}", _TARGET_COLOUR, dash,
+                  1, "%", label, width=2.5),
+            _line(t, control.dial_series(t), f"Dial set by the controller{tag}",
+                  _DIAL_COLOUR, dash, 1, "%", label, width=1.5, shape="hv"),
+        ]
     return out
 
 

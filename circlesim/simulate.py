@@ -130,7 +130,7 @@ def build_result(inputs: ModelInputs, t_out: np.ndarray, states: np.ndarray,
 
     def held_in_patient(y):
         held = y[..., sl["alveolar"]] * lung_amount
-        tissue_y = y[..., sl["tissue"]].reshape(y.shape[:-1] + (C, S))
+        tissue_y = y[..., sl["tissue"]].reshape((*y.shape[:-1], C, S))
         held[..., m.FIRST_SOLUBLE:] += np.einsum("...cs,cs->...s", tissue_y, capacity)
         return held
 

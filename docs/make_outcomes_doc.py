@@ -131,7 +131,7 @@ Worked example: 10 L STPD of sevoflurane vapour = 10 / 22.414 × {m_sevo:.3f} = 
 `grams = FGF × t × C / V_m × M`: the whole fresh gas is counted as emitted, no uptake or
 rebreathing credit, with V_m = {vm_rn:.1f} L/mol. Source: Ryan SM, Nielsen CJ, Anesth Analg
 2010;111:92–8 (published grams and CDE20; their MAC values 2.0 / 1.2 / 6.0 % and the
-24.0 L/mol are derived by back-calculation in the research notes). Code:
+24.0 L/mol are derived by back-calculation from the published grams). Code:
 `circlesim.emissions.open_circuit_agent_grams`.
 
 | agent | MAC used | grams (code) | grams (paper) | CDE20 kg (code) | CDE20 kg (paper) |

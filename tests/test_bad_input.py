@@ -48,6 +48,12 @@ def test_declared_constraints_reject_bad_values(kind, required, name, bad):
     assert constraint.describe() in message
 
 
+@pytest.mark.parametrize("weight,height", [(3.0, 140.0), (200.0, 120.0)])
+def test_implausible_body_mass_index(weight, height):
+    with pytest.raises(InputError, match=r"body-mass index of .* must be from 8 to 90 kg/m²"):
+        cs.Patient(weight_kg=weight, height_cm=height)
+
+
 def test_unknown_agent():
     with pytest.raises(InputError, match=r"agent must be one of .*got 'ether'"):
         cs.Vaporizer("ether")

@@ -26,6 +26,7 @@ ROOT = Path(__file__).resolve().parents[1]
 CHROMIUM = Path("/usr/bin/chromium")
 SCREENSHOT = ROOT / "docs" / "img" / "planner.png"
 COMPARISON_SCREENSHOT = ROOT / "docs" / "img" / "planner-comparison.png"
+ADVISE_SCREENSHOT = ROOT / "docs" / "img" / "planner-advise.png"
 CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
                  "--no-first-run", "--disable-background-networking",
                  "--disable-component-update", "--disable-sync"]
@@ -252,3 +253,49 @@ def test_planner_in_browser(planner_url, browser_page):
           f"figure, 4-hour plan: median {median:.0f} ms over {len(latencies)} changes "
           f"(min {min(latencies):.0f}, max {max(latencies):.0f})")
     assert median < 5000.0, "the figure took seconds to redraw; see out/browser-latency.json"
+
+
+def test_target_mode_and_advise_in_browser(planner_url, browser_page):
+    """A target in the plan table draws the target line; Advise finds a plan and loads it."""
+    page = browser_page
+    errors: list[str] = []
+    page.on("pageerror", lambda exc: errors.append(str(exc)))
+    page.goto(planner_url, wait_until="domcontentloaded")
+    page.wait_for_function("() => { const g = document.querySelector('.js-plotly-plot');"
+                           " return g && g.data && g.data.length > 0; }")
+    has_target = ("() => document.querySelector('.js-plotly-plot').data"
+                  ".some((t) => t.name === 'End-tidal target')")
+    assert not page.evaluate(has_target)
+    # Step 2: clear the dial, ask for 1 × age-adjusted MAC; the controller chooses the dial.
+    _enter(page, ".cs-plan-table .cs-col-dial-percent input", 1, "")
+    _enter(page, ".cs-plan-table .cs-col-target-mac input", 1, "1")
+    page.wait_for_function(has_target)
+    page.wait_for_function(
+        "() => document.querySelector('.cs-warnings').innerText.includes('Target met')")
+    target = page.evaluate(_READ_CURVE, "End-tidal target")
+    # 1.0 × sevoflurane MAC at 80 years = 1.80 × 10^(−0.00269 × 40) = 1.40 vol%
+    # (Mapleson, Br J Anaesth 1996;76:179-85).
+    shown = [y for x, y in zip(target["x"], target["y"], strict=True)
+             if y is not None and 8.0 <= x < 60.0]
+    assert shown and all(abs(y - 1.80 * 10 ** (-0.00269 * 40)) < 0.002 for y in shown)
+
+    # Advise: the panel opens, searches (a few seconds) and shows a plan with the trade-off.
+    page.locator(".cs-action-advise").click()
+    page.wait_for_selector(".cs-advise .cs-advise-run")
+    page.locator(".cs-advise-run").click()
+    page.wait_for_function(
+        "() => document.querySelector('.cs-advise-answer').innerText.includes('Advised plan')")
+    page.wait_for_selector(".cs-advise .js-plotly-plot")
+    assert "gas monitor" in page.inner_text(".cs-advise")
+    page.locator(".cs-title").click()
+    page.wait_for_timeout(600)
+    _screenshot(page, ADVISE_SCREENSHOT)
+    # Load it: the table shows the advised plan, which has no targets, and is predicted.
+    page.locator(".cs-advise-load").click()
+    page.wait_for_function(f"() => !({has_target})()")
+    cells = page.locator(".cs-plan-table .cs-col-target-mac input")
+    assert all(cells.nth(i).input_value() == "" for i in range(cells.count()))
+    assert page.locator(".cs-plan-table .cs-col-dial-percent input").first.input_value() != ""
+    body = page.inner_text("body")
+    assert "Traceback" not in body and "not a medical device" in body
+    assert not errors, errors

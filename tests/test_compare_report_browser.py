@@ -1,5 +1,5 @@
 """The comparison report opens in a real headless Chromium without a network and draws its
-figure with every plan (see /work/shared/BROWSER-TESTING.md for the browser settings)."""
+figure with every plan (headless Debian Chromium, no browser downloads)."""
 
 import os
 import shutil

@@ -23,10 +23,10 @@ from circlesim.properties import agent
 from circlesim.units import molar_volume_l
 
 # Source: Ryan SM, Nielsen CJ. Global warming potential of inhaled anesthetics: application to
-# clinical use. Anesth Analg 2010;111:92-8 (abstract, VERIFIED in /work/research notes §7):
+# clinical use. Anesth Analg 2010;111:92-8 (abstract):
 # 1 MAC-hour at 2 L/min fresh gas; GWP20 and CDE20 (g CO2-equivalent) as published; grams =
 # CDE20 / GWP20 (20.0, 11.1, 50.4 g). Their MAC values (2.0, 1.2, 6.0 %) and molar volume
-# (24.0 L/mol) are DERIVED by back-calculation in the research notes (they reproduce all three
+# (24.0 L/mol) are derived by back-calculation from the published grams (they reproduce all three
 # CDE20 values within 0.3 %).
 RYAN_NIELSEN = {
     # agent: (MAC % used by the paper, grams per MAC-hour, GWP20, CDE20 g)
@@ -119,8 +119,8 @@ def test_lower_flow_uses_less_agent_and_more_absorbent(adult):
     assert np.all(np.diff(absorbent_g) < 0), absorbent_g
 
 
-# Source: Mapleson WW, Br J Anaesth 1996;76:179-85 (equation and MAC40 values VERIFIED from the
-# abstract; the table at several ages is DERIVED from the equation in the research notes §A6).
+# Source: Mapleson WW, Br J Anaesth 1996;76:179-85 (equation and MAC40 values read in the
+# abstract; the values at several ages are derived from the equation).
 MAPLESON_TABLE = {
     "sevoflurane": {1: 2.292, 10: 2.168, 30: 1.915, 40: 1.800, 60: 1.590, 80: 1.405,
                     90: 1.321},

@@ -2,8 +2,8 @@
 apart from nitrogen exchange; supplying 20 % less empties it at the mass-balance rate.
 
 Source of VO2: Brody's rule as used in closed-circuit anaesthesia, VO2 = 10 × kg^0.75 mL/min
-(Lowe & Ernst, The Quantitative Practice of Anesthesia, 1981; secondary, see
-/work/research/validation-data.md A8) — 242 mL/min for 70 kg. Source of the expected bag
+(Lowe & Ernst, The Quantitative Practice of Anesthesia, 1981; read in a secondary source) —
+242 mL/min for 70 kg. Source of the expected bag
 volumes: mass balance of the circuit (gas in − gas out = change held).
 """
 

@@ -5,8 +5,7 @@ Sources: the body nitrogen store of a 70 kg adult is "roughly 1 L dissolved" (de
 from memory); nitrogen solubility from circlesim.properties.NITROGEN (blood/gas 0.015,
 Weathersby & Homer 1980, secondary; fat/blood 4.5 derived from olive oil/gas 0.067);
 inspired N2 and N2 excretion after denitrogenation: Bengtson JP, Bengtsson J, Bengtsson A,
-Stenqvist O, J Clin Monit 1993;9:330-4 (verified abstract, /work/research/validation-data.md
-A7).
+Stenqvist O, J Clin Monit 1993;9:330-4 (abstract).
 """
 
 import math

@@ -6,10 +6,11 @@ halothane in humans. Anesthesiology 1991;74:489-98. In healthy male volunteers b
 constant inspired concentration (with about 65 % N2O as carrier), the rise of FA/FI ranks
 N2O > desflurane > sevoflurane > isoflurane > halothane. The ranking must hold exactly for the
 population median at every time from 1 to 30 min. The papers' FA/FI numbers at each time could
-not be verified (research notes, validation-data.md §A1), so no values are checked here.
+not be checked against the papers themselves, so no values are checked here.
 
-Conditions (from the research notes): young healthy men; desflurane 2.0 %, sevoflurane 1.0 %,
-isoflurane 0.4 % (VERIFIED for the sevoflurane/isoflurane cohort: 1 % and 0.4 % in 65 % N2O);
+Conditions (from the papers' abstracts, partly from memory): young healthy men; desflurane
+2.0 %, sevoflurane 1.0 %, isoflurane 0.4 % (read in the abstract of the sevoflurane/isoflurane
+cohort: 1 % and 0.4 % in 65 % N2O);
 the halothane concentration was not recovered, 0.3 % (about the same fraction of MAC as the
 isoflurane) is our choice. A fresh gas flow of 10 L/min into the circle keeps the inspired
 concentration nearly constant, like the papers' non-rebreathing delivery.

@@ -1,7 +1,8 @@
 """The outcomes table: the current plan alone, or beside a reference plan with differences.
 
 Values come from :func:`circlesim.outcomes.summarise` (see :class:`~circlesim.app.runner.
-Prediction`); this module only lays them out.
+Prediction`) and, for plans in target mode, from the controller's verdicts
+(:attr:`circlesim.control.ControlReport.targets`); this module only lays them out.
 """
 
 from __future__ import annotations
@@ -10,10 +11,11 @@ import html
 from collections.abc import Callable
 from dataclasses import dataclass
 
+from ..control import TargetReport
 from ..outcomes import CaseSummary
 from .runner import Prediction
 
-__all__ = ["METRICS", "Metric", "outcome_table", "table_html"]
+__all__ = ["METRICS", "Metric", "outcome_table", "table_html", "target_status"]
 
 
 @dataclass(frozen=True)
@@ -78,9 +80,59 @@ def outcome_table(current: Prediction, reference: Prediction | None = None) -> t
         else:
             r = reference.summary
             rows.append([label, m.text(r), m.text(s), m.difference(s, r)])
+    rows += _target_rows(current, reference)
     if reference is None:
         return ["Outcome", "current plan"], rows
     return ["Outcome", "reference plan", "current plan", "difference"], rows
+
+
+def target_status(rep: TargetReport, tolerance: float = 0.05) -> str:
+    """A target's verdict in a few words: when it was reached, or by how much it missed.
+
+    Parameters
+    ----------
+    rep : TargetReport
+    tolerance : float, fraction
+        The controller's tolerance (``ControlReport.settings.tolerance``).
+    """
+    if rep.met:
+        return f"met: within {100 * tolerance:g} % from {rep.reached_min:.1f} min"
+    if rep.reached_min is None:
+        side, size = (("below", rep.largest_below_percent) if rep.largest_below_percent > 0
+                      else ("above", rep.largest_above_percent))
+        return f"NOT met: stays {size:.0f} % {side}"
+    if rep.deadline_min is not None and rep.reached_min > rep.deadline_min + 1e-9:
+        return (f"NOT met: reached at {rep.reached_min:.1f} min, "
+                f"{rep.reached_min - rep.deadline_min:.1f} min late")
+    return (f"NOT met: up to {rep.largest_below_percent:.0f} % below, "
+            f"{rep.largest_above_percent:.0f} % above")
+
+
+def _targets(prediction: Prediction | None) -> list[str]:
+    """The verdict of each target of a plan in target mode (none otherwise)."""
+    control = None if prediction is None else prediction.result.control
+    if control is None:
+        return []
+    return [target_status(rep, control.settings.tolerance) for rep in control.targets]
+
+
+def _target_rows(current: Prediction, reference: Prediction | None) -> list[list[str]]:
+    """One row per end-tidal target (target mode) of either plan."""
+    mine, theirs = _targets(current), _targets(reference)
+    reports = [p.result.control.targets for p in (current, reference)
+               if p is not None and p.result.control is not None]
+    rows = []
+    for i in range(max(len(mine), len(theirs))):
+        rep = next(r[i] for r in reports if i < len(r))
+        label = (f"Target {i + 1}: {rep.target_mac:.2f} MAC = {rep.target_percent:.2f} % "
+                 f"from {rep.start_min:g} min"
+                 + (f", by {rep.deadline_min:g} min" if rep.deadline_min is not None else ""))
+        now = mine[i] if i < len(mine) else "no target"
+        if reference is None:
+            rows.append([label, now])
+        else:
+            rows.append([label, theirs[i] if i < len(theirs) else "no target", now, "—"])
+    return rows
 
 
 def table_html(header: list[str], rows: list[list[str]], title: str = "") -> str:

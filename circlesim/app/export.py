@@ -11,6 +11,7 @@ from __future__ import annotations
 import html
 import re
 from collections.abc import Callable
+from dataclasses import asdict
 from pathlib import Path
 
 import ipywidgets as w
@@ -22,7 +23,7 @@ from ..plan import Plan
 from ..report_html import Section, write_report
 from ..scenario import plan_to_toml
 from .comparison import outcome_table
-from .plan_editor import STEP_COLUMNS
+from .plan_editor import STEP_COLUMNS, cell_value
 from .runner import Prediction
 
 __all__ = ["KINDS", "ExportPanel", "default_folder", "export"]
@@ -51,7 +52,7 @@ def _stem(name: str) -> str:
 
 def _plan_rows(plan: Plan) -> tuple[list[str], list[list[object]]]:
     header = [f"{c.header} ({c.unit})" if c.unit else c.header for c in STEP_COLUMNS]
-    rows = [[getattr(step, c.key) for c in STEP_COLUMNS] for step in plan.steps]
+    rows = [[cell_value(c, asdict(step)) for c in STEP_COLUMNS] for step in plan.steps]
     return header, rows
 
 
@@ -71,6 +72,8 @@ def snapshot_sections(current: Prediction, reference: Prediction | None) -> list
                  f"age-adjusted MAC {result.mac_percent:.2f} %.")
     if reference is not None:
         about.append("Solid lines: the reference plan; dashed lines: the current plan.")
+    if result.control is not None:  # target mode: each target's verdict
+        about.extend(rep.message for rep in result.control.targets)
     return [
         Section(sc.title or sc.plan.name, paragraphs=about, tables=[_plan_rows(sc.plan)]),
         Section("Prediction", figures=[figure],

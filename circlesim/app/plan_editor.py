@@ -20,7 +20,7 @@ from ..plan import Plan, Step
 from ..validation import InputError
 from .fields import format_number
 
-__all__ = ["STEP_COLUMNS", "Column", "PlanEditor", "locate_error"]
+__all__ = ["STEP_COLUMNS", "Column", "PlanEditor", "cell_value", "locate_error"]
 
 
 @dataclass(frozen=True)
@@ -41,6 +41,12 @@ class Column:
     step_field : bool
         Whether the value is passed to ``Step``.
     tooltip : str
+    blank : tuple of (str, str), optional
+        What a blank cell shows (its grey placeholder) in the first row and in later rows;
+        default: "0" (or the patient's default) in the first row and "keep" after it.
+    alternative : tuple of (str, str), optional
+        ``(suffix, step field)``: a number typed with this suffix goes to the other step field
+        instead (the Target column takes "1.2" as × MAC and "1.6%" as vol%).
     """
 
     key: str
@@ -51,6 +57,15 @@ class Column:
     choices: tuple[tuple[str, str], ...] = ()
     step_field: bool = True
     tooltip: str = ""
+    blank: tuple[str, str] | None = None
+    alternative: tuple[str, str] | None = None
+
+    @property
+    def fields(self) -> tuple[str, ...]:
+        """The step fields this column shows (its key, and the alternative's field)."""
+        if not self.step_field:
+            return ()
+        return (self.key,) if self.alternative is None else (self.key, self.alternative[1])
 
 
 STEP_COLUMNS: tuple[Column, ...] = (
@@ -59,6 +74,14 @@ STEP_COLUMNS: tuple[Column, ...] = (
     Column("air_l_min", "Air", "L/min", tooltip="air flowmeter"),
     Column("n2o_l_min", "N2O", "L/min", tooltip="nitrous oxide flowmeter"),
     Column("dial_percent", "Dial", "vol%", tooltip="vaporizer setting"),
+    Column("target_mac", "Target", "× MAC", width="62px", blank=("none", "keep"),
+           alternative=("%", "target_end_tidal_percent"),
+           tooltip="target mode: end-tidal agent to hold, × age-adjusted MAC (or vol% typed "
+                   "with a % sign, e.g. 1.6%); the controller then chooses the dial, so leave "
+                   "the step's Dial blank. Holds until a later step sets a dial or a target."),
+    Column("target_within_min", "Within", "min", width="58px", blank=("", ""),
+           tooltip="time allowed to reach this step's target (blank: as fast as the dial "
+                   "allows)"),
     Column("inject_ml", "Inject", "mL liquid",
            tooltip="liquid agent injected into the circuit at this time"),
     Column("tidal_volume_ml", "Tidal volume", "mL", width="78px"),
@@ -68,6 +91,14 @@ STEP_COLUMNS: tuple[Column, ...] = (
            tooltip="pressure-limiting valve from this step on"),
     Column("note", "Note", "", width="190px", kind="text"),
 )
+
+def cell_value(col: Column, settings: dict) -> object:
+    """What column ``col`` shows of a step's settings (``Step.to_dict()``): the value of its
+    key, or the alternative's value as text with its suffix (e.g. "1.6%")."""
+    if col.alternative is not None and settings.get(col.alternative[1]) is not None:
+        return format_number(settings[col.alternative[1]]) + col.alternative[0]
+    return settings.get(col.key)
+
 
 _PLACEHOLDER = "keep"
 _STEP_REF = re.compile(r"^(?:Plan\.)?steps\[(\d+)\]\.?(\w+)?\s*")
@@ -92,12 +123,22 @@ def locate_error(message: str, columns: tuple[Column, ...] = STEP_COLUMNS) -> tu
     row = int(match.group(1))
     key = match.group(2)
     headers = {c.key: f"{c.header} ({c.unit})" if c.unit else c.header for c in columns}
+    owner = {f: c.key for c in columns for f in c.fields}
+    key = owner.get(key, key)
     where = f"Step {row + 1}"
     if key in headers:
         where += f", {headers[key]}"
     elif key:
         where += f" {key}"
     rest = message[match.end():]
+    # "(3) cannot be set together with ..." reads "3 cannot be set together with ..."
+    rest = re.sub(r"^\(([^()]*)\)\s+", r"\1 ", rest)
+    # Other step fields the message names are given as the table's column headers.
+    rest = re.sub(r"\b(?:Step\.)?([a-z0-9]+_\w+)\b",
+                  lambda m: headers[owner[m.group(1)]] if m.group(1) in owner else m.group(0),
+                  rest)
+    for header in headers.values():  # two fields of one column: "(Target or Target)"
+        rest = rest.replace(f"{header} or {header}", header)
     return f"{where}: {rest}", row, key if key in headers else None
 
 
@@ -202,10 +243,14 @@ class PlanEditor:
         keys = [c.key for c in self.columns]
         at = keys.index(after) + 1 if after is not None else len(keys)
         self.columns = (*self.columns[:at], column, *self.columns[at:])
+        if column.key in keys:
+            raise ValueError(f"the plan table already has a column {column.key!r}.")
         for row in self.rows:
             row.cells[column.key] = _Row._cell(column, self._changed)
-            if column.step_field and column.key in row.hidden:
-                self._set(row, column, row.hidden.pop(column.key))
+            if any(f in row.hidden for f in column.fields):
+                self._set(row, column, cell_value(column, row.hidden))
+                for f in column.fields:
+                    row.hidden.pop(f, None)
         self._layout()
 
     def observe(self, callback: Callable[[], None]) -> None:
@@ -226,9 +271,8 @@ class PlanEditor:
         for i, row in enumerate(self.rows):
             values: dict = dict(row.hidden)
             for col in self.columns:
-                if not col.step_field:
-                    continue
-                values[col.key] = self._parse(i, col, row.cells[col.key].value)
+                if col.step_field:
+                    values.update(self._parse(i, col, row.cells[col.key].value))
             if values["time_min"] is None:
                 raise InputError(f"Plan.steps[{i}].time_min is empty; give the step's time in "
                                  "minutes from the start of the plan.")
@@ -240,19 +284,28 @@ class PlanEditor:
                     name=self.name.value.strip() or "plan", description=self._base.description)
 
     @staticmethod
-    def _parse(i: int, col: Column, text: str) -> object:
+    def _parse(i: int, col: Column, text: str) -> dict[str, object]:
+        """The step fields a cell gives (``{key: value}``, and the alternative's field)."""
+        out: dict[str, object] = dict.fromkeys(col.fields)
         if col.kind == "choice":
-            return text or None
+            out[col.key] = text or None
+            return out
         text = text.strip()
         if col.kind == "text":
-            return text
+            out[col.key] = text
+            return out
+        key = col.key
+        if col.alternative is not None and text.endswith(col.alternative[0]):
+            key, text = col.alternative[1], text[:-len(col.alternative[0])].strip()
         if not text:
-            return 0.0 if col.key == "inject_ml" else None
+            out[key] = 0.0 if key == "inject_ml" else None
+            return out
         try:
-            return float(text.replace(",", "."))
+            out[key] = float(text.replace(",", "."))
         except ValueError:
-            raise InputError(f"Plan.steps[{i}].{col.key} must be a number; got {text!r}."
+            raise InputError(f"Plan.steps[{i}].{key} must be a number; got {text!r}."
                              ) from None
+        return out
 
     def extras(self) -> list[dict[str, str]]:
         """Values of the columns that are not step settings, one dict per row (raw text)."""
@@ -267,12 +320,12 @@ class PlanEditor:
             for row in self.rows:
                 row.close()
             self.rows = []
-            shown = {c.key for c in self.columns if c.step_field}
+            shown = {f for c in self.columns for f in c.fields}
             for step in plan.steps:
                 row = self._new_row()
                 for col in self.columns:
                     if col.step_field:
-                        self._set(row, col, getattr(step, col.key))
+                        self._set(row, col, cell_value(col, step.to_dict()))
                 row.hidden = {k: v for k, v in step.to_dict().items() if k not in shown}
                 self.rows.append(row)
             self.duration.value = plan.duration_min
@@ -293,7 +346,9 @@ class PlanEditor:
 
     @staticmethod
     def _set(row: _Row, col: Column, value: object) -> None:
-        if col.kind == "choice":
+        if isinstance(value, str) and col.kind == "number":
+            row.cells[col.key].value = value
+        elif col.kind == "choice":
             row.cells[col.key].value = value or ""
         elif col.kind == "text":
             row.cells[col.key].value = "" if value is None else str(value)
@@ -325,6 +380,8 @@ class PlanEditor:
                     continue
                 if col.key == "time_min":
                     text = ""
+                elif col.blank is not None:
+                    text = col.blank[0 if i == 0 else 1]
                 elif col.key == "inject_ml":
                     text = "0"
                 elif i == 0:

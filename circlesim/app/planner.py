@@ -4,6 +4,13 @@ Every change re-reads the inputs, re-runs the engine and updates one plotly ``Fi
 in place. Inputs that cannot be run show an inline error (and outline the cell at fault) while
 the figure, warnings and outcomes keep the last prediction that ran.
 
+Target mode and the advisor: the plan table's Target column (× age-adjusted MAC, or vol%
+with a % sign) hands the dial to circlesim's target controller; the figure then shows the
+target and the dial the controller set, the warnings and outcomes say whether each target was
+met, and "Use the controller's dials" loads the controller's knob-level plan into the table.
+"Advise" opens :class:`~circlesim.app.advise_panel.AdvisePanel`, which asks the plan advisor
+for flows and dials that meet a target and can load its plan.
+
 Extending it: ``app.editor.add_action(label, callback)`` adds a button to the plan toolbar and
 ``app.editor.add_column(Column(..., step_field=False))`` a column whose text
 ``app.editor.extras()`` returns; a callback may change cells with ``app.editor.set_cell`` (which
@@ -22,6 +29,7 @@ import ipywidgets as w
 from ..plan import Plan
 from ..scenario import Scenario, load_scenario
 from ..validation import InputError
+from .advise_panel import AdvisePanel
 from .comparison import outcome_table, table_html
 from .controls import SettingsPanel
 from .export import ExportPanel
@@ -99,6 +107,15 @@ class PlannerApp:
         self.outcomes.add_class("cs-outcomes")
         self.export = ExportPanel(lambda: (self.runner.current, self.runner.reference),
                                   Path(output_folder) if output_folder else None)
+        self.adopt_button = self.editor.add_action(
+            "Use the controller's dials", lambda _: self.adopt_controller_plan(),
+            tooltip="Replace the targets by the flows and dial settings the target controller "
+                    "chose: a plan you can follow with the knobs")
+        self.adopt_button.disabled = True
+        self.advisor = AdvisePanel(lambda: self.scenario, self._load_advice)
+        self.advise_button = self.editor.add_action(
+            "Advise", lambda _: self.advisor.open(),
+            tooltip="Ask the plan advisor for flows and dials that meet an end-tidal target")
         self.figure = None
         self._show_inputs(self.scenario)
         self.update()
@@ -133,8 +150,8 @@ class PlannerApp:
         right = w.VBox([results, save], layout=w.Layout(flex="1 1 420px"))
         top = w.HBox([left, right], layout=w.Layout(flex_flow="row wrap",
                                                     align_items="flex-start"))
-        app = w.VBox([style_widget(), w.HTML(caution_html()), self.title, top, self.error,
-                      self.status, self.figure, FitWidth()])
+        app = w.VBox([style_widget(), w.HTML(caution_html()), self.title, top,
+                      self.advisor.widget, self.error, self.status, self.figure, FitWidth()])
         app.add_class("cs-app")
         return app
 
@@ -150,6 +167,15 @@ class PlannerApp:
     def show_plan(self, plan: Plan) -> None:
         """Put ``plan`` into the table and predict it (the other settings stay)."""
         self.load(replace(self.scenario, plan=plan))
+
+    def adopt_controller_plan(self) -> bool:
+        """Put the target controller's plan (flows and dials, no targets) into the table and
+        predict it. Returns False when the current prediction has no targets."""
+        current = self.runner.current
+        if current is None or current.result.control is None:
+            return False
+        self.show_plan(current.result.control.plan)
+        return True
 
     def keep_reference(self) -> None:
         """Keep the current prediction as the reference plan."""
@@ -169,7 +195,8 @@ class PlannerApp:
         self.editor.mark(row, key)
         self.error.value = error_html(message)
         if self.runner.current is not None:
-            self.warnings.value = alerts_html(self.runner.current.result.alerts, stale=True)
+            self.warnings.value = alerts_html(self.runner.current.result.alerts, stale=True,
+                                              targets=_targets(self.runner.current.result))
 
     def read_inputs(self) -> Scenario:
         """The scenario the controls describe.
@@ -218,14 +245,21 @@ class PlannerApp:
             refresh_timeline(self.figure, results, labels, fio2_threshold=threshold)
         self.error.value = ""
         self.editor.mark(None, None)
-        self.warnings.value = alerts_html(current.result.alerts)
+        self.warnings.value = alerts_html(current.result.alerts,
+                                          targets=_targets(current.result))
         self.outcomes.value = table_html(*outcome_table(current, self.runner.reference))
+        self.adopt_button.disabled = current.result.control is None
         self._show_derived(current.scenario)
         sc = current.scenario
         question = (f"<div class='cs-subtitle'>{html.escape(sc.question)}</div>"
                     if sc.question else "")
         self.title.value = (f"<div class='cs-title'>circlesim planner — "
                             f"{html.escape(sc.title or sc.plan.name)}</div>{question}")
+
+    def _load_advice(self, plan: Plan, target_mac: float) -> None:
+        """Load an advised plan; the outcomes' end-tidal target becomes the advised one."""
+        self.load(replace(self.scenario, plan=plan, report=replace(
+            self.scenario.report, target_end_tidal_mac=target_mac)))
 
     def _show_inputs(self, scenario: Scenario) -> None:
         self._muted = True
@@ -270,6 +304,11 @@ class PlannerApp:
         finally:
             self._muted = False
         self.update()
+
+
+def _targets(result) -> tuple:
+    """The target reports of a result in target mode (none otherwise)."""
+    return () if result.control is None else result.control.targets
 
 
 def planner(scenario: Scenario | str | Path | None = None, *,

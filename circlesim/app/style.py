@@ -46,6 +46,11 @@ CSS = """
                              text-align: right; }
 .cs-table th { font-weight: 600; background: #f6f6f6; }
 .cs-table th:first-child, .cs-table td:first-child { text-align: left; }
+.cs-advise { border-color: #3a6fb0; background: #fbfcfe; }
+.cs-advise-caution { border-left: 4px solid #3a6fb0; background: #f0f5fc; padding: 4px 8px;
+                     font-size: 13px; margin: 0 0 6px 0; }
+.cs-advise-line { font-size: 13px; margin: 2px 0; }
+.cs-busy { color: #3a6fb0; font-weight: 600; }
 """
 
 

@@ -1,7 +1,9 @@
 """The standing caution and the warnings of the current plan, as HTML.
 
 The warnings are the engine's alerts (:attr:`circlesim.result.Result.alerts`, the rules of
-:mod:`circlesim.alerts`), each with the time it starts; nothing is re-derived here.
+:mod:`circlesim.alerts`), each with the time it starts, and, in target mode, the target
+controller's verdict on each target (:attr:`circlesim.control.ControlReport.targets`); nothing
+is re-derived here.
 """
 
 from __future__ import annotations
@@ -11,8 +13,9 @@ from collections.abc import Sequence
 
 from ..alerts import Alert
 from ..cautions import CAUTION
+from ..control import TargetReport
 
-__all__ = ["alerts_html", "caution_html", "error_html"]
+__all__ = ["alerts_html", "caution_html", "error_html", "targets_html"]
 
 _SEVERITY_WORD = {"danger": "Danger", "warning": "Warning", "caution": "Caution"}
 
@@ -28,7 +31,19 @@ def _span(alert: Alert) -> str:
     return f"{alert.start_min:.1f}–{alert.end_min:.1f} min"
 
 
-def alerts_html(alerts: Sequence[Alert], *, stale: bool = False) -> str:
+def targets_html(targets: Sequence[TargetReport]) -> str:
+    """Each end-tidal target of a plan in target mode: met or not, and by how much."""
+    parts = []
+    for rep in targets:
+        kind, word = ("cs-none", "Target met") if rep.met else ("cs-warning", "Target not met")
+        span = f"{rep.start_min:.1f}–{rep.end_min:.1f} min"
+        parts.append(f"<div class='cs-alert cs-target {kind}'><span class='cs-badge'>{word}"
+                     f"</span> <b>{span}</b>: {html.escape(rep.message)}</div>")
+    return "".join(parts)
+
+
+def alerts_html(alerts: Sequence[Alert], *, stale: bool = False,
+                targets: Sequence[TargetReport] = ()) -> str:
     """The warnings panel for ``alerts`` (in start order).
 
     Parameters
@@ -37,12 +52,17 @@ def alerts_html(alerts: Sequence[Alert], *, stale: bool = False) -> str:
     stale : bool
         The inputs on screen could not be run; say that the warnings belong to the last
         prediction that ran.
+    targets : sequence of TargetReport
+        End-tidal targets of a plan in target mode, listed first with their verdicts (an
+        unmet target's alert is then not repeated).
     """
     head = "Warnings for this plan"
     if stale:
         head += " <span class='cs-unit'>(last prediction that ran)</span>"
-    parts = [f"<div class='cs-panel-title'>{head}</div>"]
-    if not alerts:
+    parts = [f"<div class='cs-panel-title'>{head}</div>", targets_html(targets)]
+    if targets:
+        alerts = [a for a in alerts if a.key != "target_not_met"]
+    if not alerts and all(t.met for t in targets):
         parts.append("<div class='cs-alert cs-none'>No alert rule fires for this plan. Monitor "
                      "gases all the same.</div>")
     for a in alerts:
