@@ -47,7 +47,7 @@ def _imports(path: Path, parts: tuple[str, ...]):
     module's top level (including under ``if TYPE_CHECKING`` — those are skipped)."""
     tree = ast.parse(path.read_text(encoding="utf-8"))
     internal, external = set(), set()
-    package_parts = parts[:-1] if parts[-1] != "__init__" else parts[:-1]
+    package_parts = parts[:-1]  # the package holding the module (or the __init__)
     for node in tree.body:
         if isinstance(node, ast.ImportFrom):
             if node.level:

@@ -2,7 +2,6 @@
 and the notebook (which only imports and calls the package)."""
 
 import html as html_text
-import json
 from pathlib import Path
 
 import numpy as np
@@ -100,23 +99,6 @@ def test_sheet_controls_update_the_figures_and_warnings(adult):
     assert sheet.last_map.carrier == "n2o"
     assert "n2o_plan_o2_pct" in sheet.table.value
     assert html_text.escape(CAUTION) in sheet.widget.children[1].value
-
-
-def test_notebook_only_imports_the_package_and_runs():
-    nbformat = pytest.importorskip("nbformat")
-    nbclient = pytest.importorskip("nbclient")
-    notebook = nbformat.read(NOTEBOOK, as_version=4)
-    code = "\n".join(c.source for c in notebook.cells if c.cell_type == "code")
-    for line in code.splitlines():
-        if line.startswith(("import ", "from ")):
-            assert "circlesim" in line, line  # nothing but the package is imported
-    assert "def " not in code and "class " not in code  # no model code in the notebook
-    assert all(not c.get("outputs") for c in notebook.cells if c.cell_type == "code")
-    nbclient.NotebookClient(notebook, timeout=600, kernel_name="python3",
-                            resources={"metadata": {"path": str(ROOT)}}).execute()
-    outputs = json.dumps([c.get("outputs", []) for c in notebook.cells])
-    assert "Traceback" not in outputs
-    assert "N2 dissolved in the body" in outputs
 
 
 def test_report_without_plan_columns(adult, tmp_path):

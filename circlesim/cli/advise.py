@@ -15,7 +15,7 @@ from pathlib import Path
 from ..advisor import OBJECTIVES, Advice, Constraints, Targets, advise
 from ..emissions import DEFAULT_GWP_HORIZON
 from ..scenario import Scenario, load_scenario, save_scenario
-from .common import caution_banner, free_path
+from .common import caution_banner, output_path
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -87,13 +87,13 @@ def run(args: argparse.Namespace) -> int:
                        report=scenario.report,
                        title=f"{scenario.title or args.scenario.stem} (advised plan)",
                        question=advice.explanation.splitlines()[0])
-    toml_path = args.out / f"{args.scenario.stem}-advised.toml"
-    toml_path = toml_path if args.overwrite else free_path(toml_path)
+    toml_path = output_path(None, args.out / f"{args.scenario.stem}-advised.toml",
+                            args.overwrite)
     print(f"\nAdvised plan written to {save_scenario(advised, toml_path, overwrite=args.overwrite)}"
           " (run it with: circlesim run FILE)")
     if not args.no_report:
-        report = args.out / f"{args.scenario.stem}-advice.html"
-        report = report if args.overwrite else free_path(report)
+        report = output_path(None, args.out / f"{args.scenario.stem}-advice.html",
+                             args.overwrite)
         print(f"Report written to {write_advice_report(advice, report, args.overwrite)}")
     return 0 if advice.feasible else 1
 

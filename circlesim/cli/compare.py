@@ -17,7 +17,7 @@ from ..costs import Prices
 from ..emissions import DEFAULT_GWP_HORIZON
 from ..files import write_text_atomic
 from ..validation import InputError
-from .common import caution_banner, free_path
+from .common import caution_banner, output_path
 
 #: Columns printed on the terminal: (key of CaseSummary.row, short header, format).
 TERMINAL_COLUMNS = (
@@ -161,15 +161,14 @@ def run(args: argparse.Namespace) -> int:
         print(f"Note: {note}")
     print(format_warnings(comparison))
     if args.csv is not None:
-        path = args.csv if args.overwrite else free_path(args.csv)
+        path = output_path(args.csv, args.csv, args.overwrite)
         text = comparison.table().to_csv(index=False, float_format="%.6g")
         written = write_text_atomic(path, text, overwrite=args.overwrite)
         print(f"\nOutcome table written to {written}")
     if not args.no_report:
         from ..comparison_report import write_comparison_report
 
-        target = args.report if args.report is not None else Path("out") / "compare.html"
-        path = target if args.overwrite else free_path(target)
+        path = output_path(args.report, Path("out") / "compare.html", args.overwrite)
         command = _command(paths, args)
         written = write_comparison_report(comparison, path, command=command,
                                           overwrite=args.overwrite)

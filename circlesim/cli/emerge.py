@@ -15,7 +15,7 @@ from pathlib import Path
 from ..emergence import AWAKENING_MAC_FRACTION, DECREMENTS, decrement_curves, emergence
 from ..scenario import load_scenario
 from ..validation import InputError
-from .common import caution_banner, free_path
+from .common import caution_banner, output_path
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -83,8 +83,8 @@ def run(args: argparse.Namespace) -> int:
         lines.extend(f" - {a}" for a in result.alerts)
     lines += ["", caution_banner()]
     print("\n".join(lines))
-    path = args.csv if args.csv is not None else Path("out") / f"{args.scenario.stem}-emergence.csv"
-    path = path if args.overwrite else free_path(path)
+    path = output_path(args.csv, Path("out") / f"{args.scenario.stem}-emergence.csv",
+                       args.overwrite)
     print(f"\nWashout time series written to "
           f"{em.washout.to_csv(path, overwrite=args.overwrite)}")
     return 0

@@ -16,7 +16,7 @@ from ..oxygen_minimum import safe_fraction_table
 from ..oxygen_report import describe_setup, setup_toml, write_oxygen_report
 from ..scenario import load_scenario
 from ..validation import InputError
-from .common import caution_banner, free_path
+from .common import caution_banner, output_path
 
 DEFAULT_FLOWS = "0.25,0.5,0.75,1,1.5,2,3,4"
 
@@ -117,9 +117,7 @@ def run(args: argparse.Namespace) -> int:
     grid = np.linspace(min(flows), max(flows), 16) if len(flows) > 1 else flows
     maps = [oxygen_map(setup, grid, fio2_threshold=threshold, carrier=c,
                        with_plan=not args.steady_only, **plan_kwargs) for c in carriers]
-    path = args.html if args.html is not None else Path("out") / "oxygen_map.html"
-    if not args.overwrite:
-        path = free_path(path)
+    path = output_path(args.html, Path("out") / "oxygen_map.html", args.overwrite)
     inputs = (tomli_w.dumps(scenario.to_dict()) if scenario is not None else setup_toml(setup))
     written = write_oxygen_report(path, setup, table, maps, fio2_threshold=threshold,
                                   courses=courses, course_labels=labels, inputs_toml=inputs,

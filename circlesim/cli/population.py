@@ -18,7 +18,7 @@ from ..population import compare_populations, probability_table, save_outcomes
 from ..scenario import load_scenario
 from ..validation import InputError
 from ..virtual_patients import check_patient_count, load_population_spec, sample_patients
-from .common import caution_banner, free_path
+from .common import caution_banner, output_path
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -78,12 +78,6 @@ def _times(text: str) -> tuple[float, ...]:
     return times
 
 
-def _output_path(path: Path | None, default: Path, overwrite: bool) -> Path:
-    if path is None:
-        return free_path(default) if not overwrite else default
-    return path if overwrite else free_path(path)
-
-
 def run(args: argparse.Namespace) -> int:
     n = check_patient_count(args.patients, "--patients")
     by = _times(args.by)
@@ -118,11 +112,11 @@ def run(args: argparse.Namespace) -> int:
             raise InputError(f"the HTML report needs plotly ({exc}); install the app extra "
                              "(pip install 'circlesim[app]') or use --no-report.") from None
 
-        path = _output_path(args.report, Path("out") / "population.html", args.overwrite)
+        path = output_path(args.report, Path("out") / "population.html", args.overwrite)
         written = write_population_report(path, results, by_min=by, overwrite=args.overwrite)
         print(f"\nReport written to {written}")
     if args.csv is not None:
-        path = _output_path(args.csv, args.csv, args.overwrite)
+        path = output_path(args.csv, args.csv, args.overwrite)
         written = save_outcomes(results, path, overwrite=args.overwrite)
         print(f"Outcomes per patient written to {written}")
     print()

@@ -7,7 +7,7 @@ from pathlib import Path
 
 from ..outcomes import summarise
 from ..scenario import load_scenario
-from .common import caution_banner, free_path
+from .common import caution_banner, output_path
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -41,10 +41,7 @@ def run(args: argparse.Namespace) -> int:
     summary = summarise(result, target_end_tidal_mac=scenario.report.target_end_tidal_mac,
                         report_times_min=times, fio2_threshold=scenario.report.fio2_threshold)
     print(format_summary(scenario, result, summary))
-    if args.csv is not None:
-        path = args.csv if args.overwrite else free_path(args.csv)
-    else:
-        path = free_path(Path("out") / f"{args.scenario.stem}.csv")
+    path = output_path(args.csv, Path("out") / f"{args.scenario.stem}.csv", args.overwrite)
     written = result.to_csv(path, overwrite=args.overwrite)
     print(f"\nTime series written to {written}")
     return 0
