@@ -12,7 +12,9 @@ import pytest
 
 import circlesim as cs
 from circlesim.app import PlannerApp
+from circlesim.app.export import snapshot_sections
 from circlesim.app.fields import format_number
+from circlesim.app.plan_editor import Column
 from circlesim.cautions import CAUTION
 
 # Age-adjusted MAC of sevoflurane for the demo's 80-year-old: MAC40 1.80 % and
@@ -113,8 +115,19 @@ def test_table_shows_a_loaded_target_plan():
     assert app.editor.read() == scenario.plan
     assert app.editor.rows[0].cells["target_mac"].placeholder == "none"
     assert app.editor.rows[1].cells["target_mac"].placeholder == "keep"
-    assert len(app.runner.current.result.control.targets) == 2
+    reports = app.runner.current.result.control.targets
+    assert len(reports) == 2
     assert app.warnings.value.count("Target met") == 2
+    # The HTML snapshot lists the plan with its targets and each target's verdict.
+    plan_section = snapshot_sections(app.runner.current, None)[0]
+    header, rows = plan_section.tables[0]
+    column = header.index("Target (× MAC)")
+    assert [r[column] for r in rows] == [1.0, 0.8]
+    assert all(rep.message in plan_section.paragraphs for rep in reports)
+    # The target columns are built in; adding one again is refused.
+    with pytest.raises(ValueError, match="already has a column 'target_mac'"):
+        app.editor.add_column(Column("target_mac", "Target", "× MAC"), after="dial_percent")
+    assert [c.key for c in app.editor.columns].count("target_mac") == 1
 
 
 def test_dial_and_target_on_one_step_is_an_inline_error(app):
@@ -221,11 +234,16 @@ def test_advise_objective_and_limits_reach_the_advisor(app):
     app.show_plan(SHORT_PLAN)
     panel = app.advisor
     panel.open()
+    first = panel.run()
+    figure = panel.pareto
     panel.objective.input.value = "time"
     panel.max_fgf.input.value = 6.0
     panel.changes.input.value = 4.0
     panel.labelling.input.value = False
     advice = panel.run()
+    assert panel.pareto is figure  # the trade-off figure is updated in place
+    star = next(t for t in figure.data if t.name == "recommended plan")
+    assert star.y[0] == pytest.approx(advice.agent_ml) and advice.agent_ml != first.agent_ml
     assert advice.objective == "time"
     assert "least time to target" in panel.answer.value
     flows = [s.fgf_l_min for s in advice.plan.segments(500.0, 12.0)]

@@ -4,7 +4,9 @@ port and Debian's Chromium, driven by Playwright, changes the fresh gas flow.
 No browser is downloaded: Playwright is pointed at /usr/bin/chromium. Without it the test is
 skipped locally, but fails when CIRCLESIM_REQUIRE_BROWSER=1 (as in CI, where .ci/run installs
 Chromium with apt-get). The test leaves docs/img/planner.png (used by docs/user-guide.md) and
-prints the time from a control change to the redrawn figure.
+prints the time from a control change to the redrawn figure. A second test types an end-tidal
+target into the plan table, runs the Advise panel, loads its plan and leaves
+docs/img/planner-advise.png.
 """
 
 from __future__ import annotations
@@ -271,7 +273,7 @@ def test_target_mode_and_advise_in_browser(planner_url, browser_page):
     _enter(page, ".cs-plan-table .cs-col-target-mac input", 1, "1")
     page.wait_for_function(has_target)
     page.wait_for_function(
-        "() => document.querySelector('.cs-warnings').innerText.includes('Target met')")
+        "() => document.querySelector('.cs-warnings').textContent.includes('Target met')")
     target = page.evaluate(_READ_CURVE, "End-tidal target")
     # 1.0 × sevoflurane MAC at 80 years = 1.80 × 10^(−0.00269 × 40) = 1.40 vol%
     # (Mapleson, Br J Anaesth 1996;76:179-85).
@@ -287,6 +289,7 @@ def test_target_mode_and_advise_in_browser(planner_url, browser_page):
         "() => document.querySelector('.cs-advise-answer').innerText.includes('Advised plan')")
     page.wait_for_selector(".cs-advise .js-plotly-plot")
     assert "gas monitor" in page.inner_text(".cs-advise")
+    print(f"\nAdvise panel in Chromium: {page.inner_text('.cs-advise-status')}")
     page.locator(".cs-title").click()
     page.wait_for_timeout(600)
     _screenshot(page, ADVISE_SCREENSHOT)

@@ -131,13 +131,14 @@ def test_n2o_mac40():
     assert NITROUS_OXIDE.mac40_percent == pytest.approx(104.0)
 
 
-@pytest.mark.parametrize("weight", [3.0, 20.0, 70.0, 150.0])
-def test_brody_vo2(weight):
+@pytest.mark.parametrize("weight,height", [(3.0, 50.0), (20.0, 115.0), (70.0, 175.0),
+                                           (150.0, 170.0)])
+def test_brody_vo2(weight, height):
     # Source: Brody/Kleiber rule as used by Lowe & Ernst (1981): basal VO2 = 10 × kg^0.75 mL/min;
     # circlesim applies the anaesthesia factor 0.85 (Theye & Tuohy, Anesthesiology 1964: 84 %).
-    patient = cs.Patient(weight_kg=weight, height_cm=150.0, age_years=30.0)
+    patient = cs.Patient(weight_kg=weight, height_cm=height, age_years=30.0)
     assert patient.vo2 == pytest.approx(0.85 * 10.0 * weight ** 0.75, rel=1e-12)
-    assert cs.Patient(weight_kg=weight, vo2_ml_min=123.0).vo2 == 123.0
+    assert cs.Patient(weight_kg=weight, height_cm=height, vo2_ml_min=123.0).vo2 == 123.0
 
 
 def test_reference_adult_physiology(adult):

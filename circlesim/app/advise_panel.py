@@ -251,8 +251,7 @@ class AdvisePanel:
             + table_html(*_plan_rows(advice), title="Plan" if advice.feasible
                          else "Closest plan")
             + f"<div class='cs-note'>Checked on a re-run of the plan: {checks}.</div>"
-            + alerts_html(advice.result.alerts)
-            + f"<div class='cs-note'>{html.escape(ADVICE_CAUTION)}</div>")
+            + alerts_html(advice.result.alerts))
         self.status.value = (f"<span class='cs-status'>Advice computed in "
                              f"{advice.elapsed_s:.1f} s ({advice.evaluations} model runs)."
                              "</span>")

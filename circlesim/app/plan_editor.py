@@ -2,9 +2,10 @@
 
 Each row is one :class:`~circlesim.plan.Step`; each column is described by a :class:`Column`.
 A blank cell means "keep the previous setting" (flows and dial start at zero, ventilation at
-the patient's default). Columns that are not step settings (``step_field=False``) can be added
-with :meth:`PlanEditor.add_column`, and buttons with :meth:`PlanEditor.add_action`; their values
-are read with :meth:`PlanEditor.extras`.
+the patient's default; a blank Target in the first row means no target, and a target holds
+until a later step sets a dial or another target). Columns that are not step settings
+(``step_field=False``) can be added with :meth:`PlanEditor.add_column`, and buttons with
+:meth:`PlanEditor.add_action`; their values are read with :meth:`PlanEditor.extras`.
 """
 
 from __future__ import annotations
@@ -91,6 +92,7 @@ STEP_COLUMNS: tuple[Column, ...] = (
            tooltip="pressure-limiting valve from this step on"),
     Column("note", "Note", "", width="190px", kind="text"),
 )
+
 
 def cell_value(col: Column, settings: dict) -> object:
     """What column ``col`` shows of a step's settings (``Step.to_dict()``): the value of its
@@ -241,10 +243,10 @@ class PlanEditor:
     def add_column(self, column: Column, *, after: str | None = None) -> None:
         """Add a column (after the column ``after``, or at the end); rows keep their values."""
         keys = [c.key for c in self.columns]
-        at = keys.index(after) + 1 if after is not None else len(keys)
-        self.columns = (*self.columns[:at], column, *self.columns[at:])
         if column.key in keys:
             raise ValueError(f"the plan table already has a column {column.key!r}.")
+        at = keys.index(after) + 1 if after is not None else len(keys)
+        self.columns = (*self.columns[:at], column, *self.columns[at:])
         for row in self.rows:
             row.cells[column.key] = _Row._cell(column, self._changed)
             if any(f in row.hidden for f in column.fields):
