@@ -7,6 +7,7 @@ import html
 
 import numpy as np
 import pytest
+from app_helpers import all_html, cell
 
 import circlesim as cs
 from circlesim.app import PlannerApp
@@ -24,20 +25,6 @@ def _curve(app: PlannerApp, name: str) -> np.ndarray:
     return np.array(trace.y, dtype=float)
 
 
-def _cell(app: PlannerApp, row: int, key: str):
-    return app.editor.rows[row].cells[key]
-
-
-def _all_html(widget) -> str:
-    """Text of every HTML widget in the app's tree."""
-    out = []
-    stack = [widget]
-    while stack:
-        w = stack.pop()
-        if hasattr(w, "value") and isinstance(w.value, str) and "<" in w.value:
-            out.append(w.value)
-        stack.extend(getattr(w, "children", ()))
-    return "\n".join(out)
 
 
 def test_starts_with_the_demo_scenario(app):
@@ -52,16 +39,16 @@ def test_starts_with_the_demo_scenario(app):
 
 
 def test_caution_always_on_screen(app):
-    assert html.escape(CAUTION) in _all_html(app.widget)
-    _cell(app, 1, "o2_l_min").value = "-1"
+    assert html.escape(CAUTION) in all_html(app.widget)
+    cell(app, 1, "o2_l_min").value = "-1"
     assert app.runner.error is not None
-    assert html.escape(CAUTION) in _all_html(app.widget)
+    assert html.escape(CAUTION) in all_html(app.widget)
 
 
 def test_flow_change_changes_engine_inputs_and_figure_in_place(app):
     figure = app.figure
     before = _curve(app, "End-tidal sevoflurane")
-    _cell(app, 1, "o2_l_min").value = "1.5"
+    cell(app, 1, "o2_l_min").value = "1.5"
     step = app.runner.current.scenario.plan.steps[1]
     assert step.o2_l_min == 1.5 and step.air_l_min == 0.15
     assert app.figure is figure  # the same FigureWidget, updated in place
@@ -132,12 +119,12 @@ def test_starting_ventilation_mirrors_the_first_step(app):
     tidal = app.settings.field("tidal_volume_ml")
     tidal.override.value = True
     tidal.input.value = 520.0
-    assert _cell(app, 0, "tidal_volume_ml").value == "520"
+    assert cell(app, 0, "tidal_volume_ml").value == "520"
     assert app.runner.current.scenario.plan.steps[0].tidal_volume_ml == 520.0
-    _cell(app, 0, "tidal_volume_ml").value = "480"
+    cell(app, 0, "tidal_volume_ml").value = "480"
     assert tidal.value == 480.0
     assert app.runner.current.scenario.plan.steps[0].tidal_volume_ml == 480.0
-    _cell(app, 0, "tidal_volume_ml").value = ""
+    cell(app, 0, "tidal_volume_ml").value = ""
     assert tidal.value is None
     assert app.runner.current.scenario.plan.steps[0].tidal_volume_ml is None
 
@@ -152,20 +139,20 @@ def test_invalid_cell_shows_inline_error_and_keeps_last_prediction(app, row, key
                                                                    wording):
     good = app.runner.current
     curve = _curve(app, "End-tidal sevoflurane")
-    _cell(app, row, key).value = text
+    cell(app, row, key).value = text
     assert app.runner.current is good
     assert wording in app.runner.error
     assert html.escape(wording) in app.error.value
     assert "Traceback" not in app.error.value
-    assert "cs-invalid" in _cell(app, row, key)._dom_classes
+    assert "cs-invalid" in cell(app, row, key)._dom_classes
     np.testing.assert_array_equal(_curve(app, "End-tidal sevoflurane"), curve)
     assert "last prediction that ran" in app.warnings.value
     # Correcting the entry clears the error and runs again.
-    _cell(app, row, key).value = {"o2_l_min": "0.4", "dial_percent": "4", "air_l_min": "0.2",
+    cell(app, row, key).value = {"o2_l_min": "0.4", "dial_percent": "4", "air_l_min": "0.2",
                                   "time_min": "30"}[key]
     assert app.runner.error is None and app.error.value == ""
     assert app.runner.current is not good
-    assert "cs-invalid" not in _cell(app, row, key)._dom_classes
+    assert "cs-invalid" not in cell(app, row, key)._dom_classes
 
 
 def test_invalid_setting_shows_inline_error(app):
@@ -176,8 +163,8 @@ def test_invalid_setting_shows_inline_error(app):
 
 
 def test_too_little_fresh_gas_is_an_error(app):
-    _cell(app, 1, "o2_l_min").value = "0"
-    _cell(app, 1, "air_l_min").value = "0.05"
+    cell(app, 1, "o2_l_min").value = "0"
+    cell(app, 1, "air_l_min").value = "0.05"
     assert "Step 2: total fresh gas flow (O2 + air + N2O) must be a number from 0.1" in (
         app.runner.error)
 
@@ -185,8 +172,8 @@ def test_too_little_fresh_gas_is_an_error(app):
 def test_add_and_remove_steps(app):
     app.editor.add_step()
     assert len(app.editor.rows) == 4
-    assert _cell(app, 3, "time_min").value == "70"
-    _cell(app, 3, "dial_percent").value = "2.5"
+    assert cell(app, 3, "time_min").value == "70"
+    cell(app, 3, "dial_percent").value = "2.5"
     plan = app.runner.current.scenario.plan
     assert plan.steps[3] == cs.Step(70.0, dial_percent=2.5)
     app.editor.remove_step(1)
@@ -213,8 +200,8 @@ def test_comparison_with_reference_plan(app):
     figure = app.figure
     app.keep_reference()
     reference = app.runner.reference
-    _cell(app, 1, "o2_l_min").value = "0.25"
-    _cell(app, 1, "air_l_min").value = "0.25"
+    cell(app, 1, "o2_l_min").value = "0.25"
+    cell(app, 1, "air_l_min").value = "0.25"
     assert app.figure is figure
     assert len(figure.data) == 28
     names = [t.name for t in figure.data]
@@ -243,7 +230,7 @@ def test_agent_change_relabels_the_figure(app):
     assert app.runner.current.result.agent == "isoflurane"
     assert "End-tidal isoflurane" in [t.name for t in app.figure.data]
     assert app.settings.field("max_dial_percent").input.value == 5.0
-    _cell(app, 0, "dial_percent").value = "6"
+    cell(app, 0, "dial_percent").value = "6"
     assert "Step 1, Dial (vol%): must be a number from 0 to 5 vol% (the isoflurane " \
            "vaporizer's range); got 6" in app.runner.error
     shapes = {s.name: s.y0 for s in app.figure.layout.shapes}
@@ -258,8 +245,8 @@ def test_warnings_panel_lists_alerts_with_start_times(app):
     assert "from 8.0 min to the end" in app.warnings.value
     assert "Sevoflurane at a fresh gas flow below 1 L/min" in app.warnings.value
     # Oxygen falls at minimal flow with air as carrier: FIO2 alert with its start time.
-    _cell(app, 1, "o2_l_min").value = "0.12"
-    _cell(app, 1, "air_l_min").value = "0.3"
+    cell(app, 1, "o2_l_min").value = "0.12"
+    cell(app, 1, "air_l_min").value = "0.3"
     fio2 = [a for a in app.runner.current.result.alerts if a.key == "fio2_low"]
     assert fio2
     assert f"{fio2[0].start_min:.1f}" in app.warnings.value
@@ -278,9 +265,9 @@ def test_extension_points(app):
                           after="dial_percent")
     keys = [c.key for c in app.editor.columns]
     assert keys.index("target") == keys.index("dial_percent") + 1
-    _cell(app, 1, "target").value = "1.0"
+    cell(app, 1, "target").value = "1.0"
     assert app.runner.error is None  # extra columns are not step settings
     button.click()
     assert clicked == [[{"target": ""}, {"target": "1.0"}, {"target": ""}]]
-    app.editor.set_cell(1, "dial_percent", 3.0)
+    app.editor.setcell(1, "dial_percent", 3.0)
     assert app.runner.current.scenario.plan.steps[1].dial_percent == 3.0

@@ -9,6 +9,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from app_helpers import all_html, cell
 
 import circlesim as cs
 from circlesim.app import PlannerApp
@@ -34,26 +35,14 @@ def _trace(app: PlannerApp, name: str):
     return next(t for t in app.figure.data if t.name == name)
 
 
-def _cell(app: PlannerApp, row: int, key: str):
-    return app.editor.rows[row].cells[key]
-
-
-def _all_html(widget) -> str:
-    out, stack = [], [widget]
-    while stack:
-        w = stack.pop()
-        if hasattr(w, "value") and isinstance(w.value, str) and "<" in w.value:
-            out.append(w.value)
-        stack.extend(getattr(w, "children", ()))
-    return "\n".join(out)
 
 
 def test_target_column_reaches_the_engine_and_the_figure(app):
     figure = app.figure
     assert "End-tidal target" not in [t.name for t in figure.data]
-    _cell(app, 1, "dial_percent").value = ""  # the controller chooses the dial from 8 min
-    _cell(app, 1, "target_mac").value = "1.0"
-    _cell(app, 1, "target_within_min").value = "10"
+    cell(app, 1, "dial_percent").value = ""  # the controller chooses the dial from 8 min
+    cell(app, 1, "target_mac").value = "1.0"
+    cell(app, 1, "target_within_min").value = "10"
     assert app.runner.error is None
     step = app.runner.current.scenario.plan.steps[1]
     assert (step.target_mac, step.target_within_min, step.dial_percent) == (1.0, 10.0, None)
@@ -90,7 +79,7 @@ def test_target_column_reaches_the_engine_and_the_figure(app):
     assert not app.adopt_button.disabled
 
     # "1.6%" is a target in vol%.
-    _cell(app, 1, "target_mac").value = "1.6%"
+    cell(app, 1, "target_mac").value = "1.6%"
     step = app.runner.current.scenario.plan.steps[1]
     assert (step.target_end_tidal_percent, step.target_mac) == (1.6, None)
     target = _trace(app, "End-tidal target")
@@ -98,8 +87,8 @@ def test_target_column_reaches_the_engine_and_the_figure(app):
     assert y[(t >= 8.0) & (t < 60.0)] == pytest.approx(1.6)
 
     # Back to dial settings: the target and dial curves leave the same figure.
-    _cell(app, 1, "target_within_min").value = ""
-    _cell(app, 1, "target_mac").value = ""
+    cell(app, 1, "target_within_min").value = ""
+    cell(app, 1, "target_mac").value = ""
     assert app.runner.error is None and app.runner.current.result.control is None
     assert app.figure is figure and len(figure.data) == 14
     assert app.adopt_button.disabled
@@ -133,28 +122,28 @@ def test_table_shows_a_loaded_target_plan():
 def test_dial_and_target_on_one_step_is_an_inline_error(app):
     good = app.runner.current
     curve = np.array(_trace(app, "End-tidal sevoflurane").y, dtype=float)
-    _cell(app, 1, "target_mac").value = "1.0"  # step 2 still sets the dial to 3.5 %
+    cell(app, 1, "target_mac").value = "1.0"  # step 2 still sets the dial to 3.5 %
     assert app.runner.current is good
     wording = ("Step 2, Dial (vol%): 3.5 cannot be set together with an end-tidal target: in "
                "target mode the controller chooses the dial. Give either the dial or the "
                "target.")
     assert app.runner.error == wording
     assert html.escape(wording) in app.error.value
-    assert "Traceback" not in _all_html(app.widget)
-    assert "cs-invalid" in _cell(app, 1, "dial_percent")._dom_classes
+    assert "Traceback" not in all_html(app.widget)
+    assert "cs-invalid" in cell(app, 1, "dial_percent")._dom_classes
     np.testing.assert_array_equal(np.array(_trace(app, "End-tidal sevoflurane").y,
                                            dtype=float), curve)
     assert "last prediction that ran" in app.warnings.value
-    assert html.escape(CAUTION) in _all_html(app.widget)
+    assert html.escape(CAUTION) in all_html(app.widget)
     # Time allowed without a target names the Within column.
-    _cell(app, 1, "target_mac").value = ""
+    cell(app, 1, "target_mac").value = ""
     good = app.runner.current
-    _cell(app, 1, "target_within_min").value = "5"
+    cell(app, 1, "target_within_min").value = "5"
     assert app.runner.error.startswith("Step 2, Within (min): 5 min needs a target on the "
                                        "same step")
-    assert "cs-invalid" in _cell(app, 1, "target_within_min")._dom_classes
+    assert "cs-invalid" in cell(app, 1, "target_within_min")._dom_classes
     assert app.runner.current is good
-    _cell(app, 1, "target_within_min").value = ""
+    cell(app, 1, "target_within_min").value = ""
     assert app.runner.error is None
 
 
@@ -164,10 +153,10 @@ def test_unmet_target_says_by_how_much(app):
     # minimal flow inspired stays far below the dial (rebreathing of depleted gas). Source:
     # textbook low-flow physiology, e.g. Baum & Aitkenhead, Anaesthesia 1995;50 Suppl:37-44
     # (from memory).
-    _cell(app, 0, "dial_percent").value = ""
-    _cell(app, 0, "target_mac").value = "7.9%"
-    _cell(app, 1, "dial_percent").value = ""
-    _cell(app, 2, "dial_percent").value = ""
+    cell(app, 0, "dial_percent").value = ""
+    cell(app, 0, "target_mac").value = "7.9%"
+    cell(app, 1, "dial_percent").value = ""
+    cell(app, 2, "dial_percent").value = ""
     assert app.runner.error is None
     rep = app.runner.current.result.control.targets[0]
     assert not rep.met and rep.limited_by == "dial range"
@@ -177,8 +166,8 @@ def test_unmet_target_says_by_how_much(app):
 
 
 def test_adopt_the_controllers_plan(app):
-    _cell(app, 1, "dial_percent").value = ""
-    _cell(app, 1, "target_mac").value = "1.0"
+    cell(app, 1, "dial_percent").value = ""
+    cell(app, 1, "target_mac").value = "1.0"
     controlled = app.runner.current.result
     app.adopt_button.click()
     assert app.runner.error is None
@@ -210,7 +199,7 @@ def test_advise_on_the_demo_loads_a_plan_that_predicts(app):
     assert "Advised plan (least liquid agent)" in answer
     assert f"{advice.saved_ml:.1f} mL ({advice.saved_percent:.0f} %) less than a plain" in answer
     assert "Against a plain 4 L/min plan" in answer
-    assert "gas monitor" in _all_html(panel.widget)
+    assert "gas monitor" in all_html(panel.widget)
     assert panel.pareto is not None and len(panel.pareto.data) >= 2
     assert not panel.load_button.disabled
     panel.load_button.click()
@@ -267,7 +256,7 @@ def test_impossible_target_shows_the_explanation_and_closest_plan(app):
     assert "is above what the 1 % dial can give" in answer
     assert "Closest plan" in answer
     assert panel.load_button.description == "Load the closest plan into the editor"
-    assert "Traceback" not in _all_html(app.widget)
+    assert "Traceback" not in all_html(app.widget)
     # Contradictory limits: which two clash.
     panel.max_dial.input.value = 8.0
     panel.min_fgf.input.value = 4.0
@@ -288,5 +277,5 @@ def test_impossible_target_shows_the_explanation_and_closest_plan(app):
     panel.changes.input.value = 2.5
     assert panel.run() is None
     assert "Changes per hour must be a whole number" in panel.status.value
-    assert "Traceback" not in _all_html(app.widget)
-    assert html.escape(CAUTION) in _all_html(app.widget)
+    assert "Traceback" not in all_html(app.widget)
+    assert html.escape(CAUTION) in all_html(app.widget)

@@ -1,0 +1,19 @@
+"""Helpers shared by the planner-app tests."""
+
+from __future__ import annotations
+
+
+def cell(app, row: int, key: str):
+    """The widget of one cell of the plan table."""
+    return app.editor.rows[row].cells[key]
+
+
+def all_html(widget) -> str:
+    """Text of every HTML widget in a widget tree."""
+    out, stack = [], [widget]
+    while stack:
+        w = stack.pop()
+        if hasattr(w, "value") and isinstance(w.value, str) and "<" in w.value:
+            out.append(w.value)
+        stack.extend(getattr(w, "children", ()))
+    return "\n".join(out)
