@@ -269,5 +269,5 @@ def test_extension_points(app):
     assert app.runner.error is None  # extra columns are not step settings
     button.click()
     assert clicked == [[{"target": ""}, {"target": "1.0"}, {"target": ""}]]
-    app.editor.setcell(1, "dial_percent", 3.0)
+    app.editor.set_cell(1, "dial_percent", 3.0)
     assert app.runner.current.scenario.plan.steps[1].dial_percent == 3.0
