@@ -5,7 +5,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 from .properties import Agent, agent
-from .units import MOLAR_VOLUME_STPD_L
+from .units import MOLAR_VOLUME_STPD_L, STANDARD_PRESSURE_KPA
 from .validation import InputError, OneOf, bounded, check_fields, optional_bounded
 
 __all__ = ["Absorber", "Circuit", "Vaporizer"]
@@ -57,7 +57,8 @@ class Circuit:
     sample_ml_min: float = field(default=200.0, metadata=bounded(0.0, 500.0, "mL/min"))
     sample_returned: bool = True
     gas_temperature_c: float = field(default=20.0, metadata=bounded(10.0, 40.0, "°C"))
-    ambient_pressure_kpa: float = field(default=101.325, metadata=bounded(50.0, 110.0, "kPa"))
+    ambient_pressure_kpa: float = field(default=STANDARD_PRESSURE_KPA,
+                                        metadata=bounded(50.0, 110.0, "kPa"))
     inspiratory_fraction: float = field(default=1.0 / 3.0, metadata=bounded(0.2, 0.6))
     vent_exhaled_share: float = field(default=1.0, metadata=bounded(0.0, 1.0))
     start_gas: str = field(default="fresh_gas",

@@ -17,6 +17,7 @@ from functools import cache
 
 import numpy as np
 
+from .emissions import RYAN_NIELSEN_MOLAR_VOLUME_L
 from .equipment import Circuit, Vaporizer
 from .outcomes import time_to_reach
 from .patient import Patient
@@ -200,7 +201,7 @@ def grams_per_mac_hour(agent: str, mac_percent: float, intertissue: bool = True)
     r = simulate(patient, Circuit(), plan, vaporizer=Vaporizer(agent), output_interval_min=1.0)
     delivered = r.cumulative["delivered"][-1, r.gas_index("agent")]
     grams = float(vapour_l_stpd_to_grams(delivered, agent_properties(agent).molar_mass_g_mol))
-    return grams * molar_volume_l(20.0) / 24.0
+    return grams * molar_volume_l(20.0) / RYAN_NIELSEN_MOLAR_VOLUME_L
 
 
 def hendrickx_minutes_to_fio2_025(intertissue: bool = True) -> float:
