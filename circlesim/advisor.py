@@ -273,6 +273,12 @@ class Advice:
     elapsed_s: float
     evaluations: int
 
+    @property
+    def reference_holds_target(self) -> bool:
+        """Whether the plain comparison plan meets every target (a like-for-like yardstick)."""
+        control = self.reference.control
+        return control is None or all(r.met for r in control.targets)
+
     def to_toml(self) -> str:
         """The plan as TOML (a ``[plan]`` table with ``[[plan.steps]]``)."""
         return plan_to_toml(self.plan)
@@ -940,9 +946,16 @@ def _explain(advice: Advice, prob: _Problem, best: _Candidate, reference: Result
         f", {advice.co2e_kg:.1f} kg CO2-equivalent (GWP{advice.gwp_horizon_years})")
     lines[-1] += f"{advice.agent_ml:.1f} mL of liquid {agent}{co2}."
     ref_ml = float(reference.agent_delivered_ml[-1])
-    lines.append(f"Against a plain {advice.reference_fgf_l_min:g} L/min plan holding the same "
-                 f"target ({ref_ml:.1f} mL): {advice.saved_ml:.1f} mL saved "
-                 f"({advice.saved_percent:.0f} %).")
+    missed = [r for r in reference.control.targets if not r.met]
+    if not advice.reference_holds_target:  # no like-for-like yardstick: say so
+        lines.append(f"Against a plain {advice.reference_fgf_l_min:g} L/min plan, which does "
+                     f"NOT hold the same target ({missed[0].message.rstrip('.')}), "
+                     f"{ref_ml:.1f} mL: {advice.saved_ml:.1f} mL saved "
+                     f"({advice.saved_percent:.0f} %), not a like-for-like comparison.")
+    else:
+        lines.append(f"Against a plain {advice.reference_fgf_l_min:g} L/min plan holding the "
+                     f"same target ({ref_ml:.1f} mL): {advice.saved_ml:.1f} mL saved "
+                     f"({advice.saved_percent:.0f} %).")
     return "\n".join(lines)
 
 

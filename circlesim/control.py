@@ -16,9 +16,11 @@ here, of circlesim's own design, plays the part of the person at the machine:
   dial alone cannot reach the target by the step's ``target_within_min`` or hold it, and lowers
   the flow back as soon as the dial alone can hold the target again.
 
-The look-ahead uses two runs of the model besides the run with the current dial, and treats
-end-tidal agent as linear in the two dial settings about the current one; the feedback every
-few seconds corrects what that linearisation misses.
+The look-ahead uses four runs of the model besides the run with the current dial, and treats
+end-tidal agent as linear in the two dial settings about the current one — measured not in
+vol% but in a blend of the setting and the vapour it adds per litre of carrier gas, fitted at
+each look (:meth:`_Controller._effect`); the feedback every few seconds corrects what that
+linearisation misses.
 
 :func:`simulate_with_targets` runs the controller, writes the knob changes as an ordinary
 :class:`~circlesim.plan.Plan`, re-runs that plan with :func:`circlesim.simulate` and returns
@@ -55,7 +57,7 @@ N_SAMPLES = 24
 #: On the way to the target, moves predicted to pass it by more than this fraction of the
 #: tolerance are ruled out.
 APPROACH_OVERSHOOT = 0.5
-#: Exact checks of a bold move on the way to the target before settling for a milder one.
+#: Exact checks of a move on the way to the target before settling for a milder one.
 APPROACH_CHECKS = 4
 #: A single dial change is preferred to a change now and another soon after unless the
 #: latter's look-ahead cost is less than 1/1.5 of the former's.
@@ -256,19 +258,20 @@ class _Controller:
                ) -> tuple[float, float]:
         """Dial to set now (vol%), and the worst predicted relative error if it is kept.
 
-        The look-ahead weighs three moves, with end-tidal agent taken as linear in the dial
-        settings about the current one (four runs of the model):
+        The look-ahead weighs three moves, with end-tidal agent taken as linear in the dial's
+        effect (:meth:`_effect`) about the current setting (five runs of the model):
 
         * wait: keep the dial until the next look, then set the best dial;
         * one change: set a dial now and keep it;
         * two changes: set a dial now and another one ``min_dwell_min`` later.
 
-        On the way to the target (outside the tolerance) the controller takes the boldest
-        dial now (highest when rising, lowest when falling) whose two-change move is
-        predicted to end within :data:`APPROACH_OVERSHOOT` of the target without passing it
-        by more; waiting wins if the current dial is already that bold. Near the target it
-        takes the move of least look-ahead cost, preferring one change to two, and leaves
-        the dial alone while the look-ahead stays within ``aim``.
+        On the way to the target (outside the tolerance) only moves predicted not to pass
+        the target by more than :data:`APPROACH_OVERSHOOT` of the tolerance count — for each
+        dial now, the later dials that keep it so (:meth:`_later_bounds`) — and the
+        controller takes the two-change move of least look-ahead cost among them; waiting
+        wins if the current dial is already at least as bold, keeps off the target and does
+        no worse. Near the target it takes the move of least look-ahead cost, preferring one
+        change to two, and leaves the dial alone while the look-ahead stays within ``aim``.
 
         Parameters
         ----------
@@ -296,26 +299,43 @@ class _Controller:
         delta = self.snap(0.3 * top)
         other = knobs._replace(dial_percent=self.snap(dc + delta if dc + delta <= top + _EPS
                                                       else dc - delta))
-        d = other.dial_percent - dc
-        a = (self.predict(y, t, other, knobs, t + dwell, samples) - base) / d  # now, to dwell
-        b = (self.predict(y, t, knobs, other, t + dwell, samples) - base) / d  # after dwell
-        c = (self.predict(y, t, knobs, other, t + dt, samples) - base) / d  # after waiting
         grid = self.grid
-        dn = grid - dc  # (n,)
+        pa = self.predict(y, t, other, knobs, t + dwell, samples) - base  # now, to dwell
+        pb = self.predict(y, t, knobs, other, t + dwell, samples) - base  # after dwell
+        pc = self.predict(y, t, knobs, other, t + dt, samples) - base  # after waiting
+        # end-tidal agent is linear neither in the setting nor in the vapour it adds per
+        # litre of carrier gas, but nearly so in a blend of the two; a run with the dial at
+        # the far end of the scale picks the blend
+        far = knobs._replace(dial_percent=0.0 if dc > 0.5 * top else self.snap(top))
+        pf = self.predict(y, t, far, far, t + dwell, samples) - base
+        u = self._effect(knobs, (dc, other.dial_percent, far.dial_percent), pa + pb, pf)
+        uc = float(np.interp(dc, grid, u))
+        d = float(np.interp(other.dial_percent, grid, u)) - uc
+        a, b, c = pa / d, pb / d, pc / d
+        dn = u - uc  # (n,)
         error_now = float(y[self.runner.et_index]) / target - 1.0
-        # two changes: for each dial now, the best dial after the dwell
-        later = self._best_later(target - base[None, :] - dn[:, None] * a[None, :], b, dc)
+        approaching = abs(error_now) > self.s.tolerance
+        sign = 1.0 if error_now < 0.0 else -1.0  # +1: end-tidal has to rise
+        # two changes: for each dial now, the best dial after the dwell; on the way to the
+        # target only among the later dials that keep the move from passing it by more than
+        # the cap (the best dial is often beyond the scale's end — rising too slowly early in
+        # the look-ahead — and the end of the scale would then pass the target late in it)
+        resid = target - base[None, :] - dn[:, None] * a[None, :]
+        bounds = self._later_bounds(resid, b, sign, target, u, uc) if approaching else None
+        later = self._best_later(resid, b, u, uc, bounds)  # (n, 5) indices on the scale
         two = (base[None, None, :] + dn[:, None, None] * a[None, None, :]
-               + (later - dc)[:, :, None] * b[None, None, :]) / target - 1.0
+               + (u[later] - uc)[:, :, None] * b[None, None, :]) / target - 1.0
         two_costs = self.cost(two)
         pick = np.argmin(two_costs, axis=1)
         two = two[np.arange(grid.size), pick]  # (n, S)
         two_cost = two_costs[np.arange(grid.size), pick]
-        later = later[np.arange(grid.size), pick]  # (n,)
-        wait_later = self._best_later((target - base)[None, :], c, dc)[0]
-        waits = (base[None, :] + (wait_later - dc)[:, None] * c[None, :]) / target - 1.0
+        later = grid[later[np.arange(grid.size), pick]]  # (n,) vol%
+        resid = (target - base)[None, :]
+        bounds = self._later_bounds(resid, c, sign, target, u, uc) if approaching else None
+        wait_later = self._best_later(resid, c, u, uc, bounds)[0]
+        waits = (base[None, :] + (u[wait_later] - uc)[:, None] * c[None, :]) / target - 1.0
         wait = waits[int(np.argmin(self.cost(waits)))]
-        if abs(error_now) > self.s.tolerance:
+        if approaching:
             check = (y, t, knobs, target, samples)
             return self._approach(error_now, dc, two, two_cost, later, wait, check), worst_keep
         one = (base[None, :] + dn[:, None] * (a + b)[None, :]) / target - 1.0
@@ -336,9 +356,9 @@ class _Controller:
                   later: np.ndarray, wait: np.ndarray, check: tuple) -> float:
         """Dial on the way to the target (see :meth:`decide`).
 
-        The boldest move is checked with the exact model (the linear look-ahead is least
-        accurate for large moves); if it would pass the target by more than the cap, the next
-        bolder-than-needed ones are tried in turn (at most :data:`APPROACH_CHECKS`).
+        The chosen move is checked with the exact model (the linear look-ahead is least
+        accurate for large moves); if it would pass the target by more than the cap, milder
+        ones are tried in turn (at most :data:`APPROACH_CHECKS`).
         """
         rising = error_now < 0.0
         sign = 1.0 if rising else -1.0
@@ -347,23 +367,26 @@ class _Controller:
         if passes.all():  # every move passes the target: the least bad one
             return self._unless_nudge(float(self.grid[int(np.argmin(two_cost))]), dc)
         ok = np.flatnonzero(~passes)
-        order = ok[::-1] if rising else ok
+        best = ok[int(np.argmin(two_cost[ok]))]  # least cost among those not passing it
+        order = ok[ok <= best][::-1] if rising else ok[ok >= best]
         y, t, knobs, target, samples = check
-        choice = float(self.grid[order[0]])
         step = max(1, order.size // (2 * APPROACH_CHECKS))
-        for i in order[:step * APPROACH_CHECKS:step]:
-            choice = float(self.grid[i])
+        pick = order[0]
+        for pick in order[:step * APPROACH_CHECKS:step]:
+            choice = float(self.grid[pick])
             if abs(choice - dc) <= _EPS:
                 break
             exact = self.predict(y, t, knobs._replace(dial_percent=choice),
-                                 knobs._replace(dial_percent=float(later[i])),
+                                 knobs._replace(dial_percent=float(later[pick])),
                                  t + self.s.min_dwell_min, samples) / target - 1.0
             if (sign * exact).max() <= cap:
                 break
-        wait_ok = (sign * wait).max() <= cap
-        if wait_ok and sign * (dc - choice) >= -_EPS:
+        # keep the dial for another look only if it is already at least as bold and waiting
+        # is predicted to keep off the target and to do no worse
+        if (sign * (dc - self.grid[pick]) >= -_EPS and (sign * wait).max() <= cap
+                and self.cost(wait) <= two_cost[pick]):
             return dc
-        return self._unless_nudge(choice, dc)
+        return self._unless_nudge(float(self.grid[pick]), dc)
 
     def _unless_nudge(self, dial: float, dc: float) -> float:
         """``dc`` if ``dial`` is within two steps of it: a change blocks the next one for
@@ -377,14 +400,63 @@ class _Controller:
         weighted :data:`OVERSHOOT_WEIGHT` times more above the target than below it."""
         return (np.where(e < 0.0, 1.0, OVERSHOOT_WEIGHT) * e) ** 2 @ np.ones(e.shape[-1])
 
-    def _best_later(self, resid: np.ndarray, slope: np.ndarray, dc: float) -> np.ndarray:
-        """Candidate later dials (vol%) for each row of residuals: the least-squares dial on
-        the scale and its two neighbours either side, shape (rows, 5)."""
+    def _effect(self, knobs: Knobs, dials: tuple[float, float, float], near: np.ndarray,
+                far: np.ndarray) -> np.ndarray:
+        """The dial's effect at each setting on the scale, in which the look-ahead treats
+        end-tidal agent as linear: ``(1 − w) d + w · 100 g(d / 100)``, with ``g`` the
+        vapour per litre of carrier gas (:meth:`Runner.dial_effect`) and the weight ``w``
+        (0–1 in steps of 0.05) that best predicts, from the response ``near`` to the
+        dial moved from ``dials[0]`` to ``dials[1]``, the response ``far`` to
+        ``dials[2]`` (both end-tidal fractions at the look-ahead samples, less the
+        current dial's)."""
+        d = np.array(dials + tuple(self.grid))
+        g = self.runner.dial_effect(knobs, d)
+        weights = np.linspace(0.0, 1.0, 21)
+        v = (1.0 - weights)[:, None] * d[None, :] + weights[:, None] * g[None, :]
+        ratio = (v[:, 2] - v[:, 0]) / (v[:, 1] - v[:, 0])  # (21,)
+        misfit = ((ratio[:, None] * near[None, :] - far[None, :]) ** 2).sum(axis=1)
+        return v[int(np.argmin(misfit)), 3:]
+
+    def _best_later(self, resid: np.ndarray, slope: np.ndarray, u: np.ndarray, uc: float,
+                    bounds: tuple[np.ndarray, np.ndarray] | None = None) -> np.ndarray:
+        """Candidate later dials (indices on the scale) for each row of residuals: the
+        least-squares dial on the scale and its two neighbours either side, shape (rows, 5),
+        kept within ``bounds`` (lowest and highest index, per row) if given.
+
+        ``u`` (n,) is the dial's effect (:meth:`Runner.dial_effect`) at each setting on the
+        scale, ``uc`` at the current one; ``slope`` (S,) end-tidal fraction per unit of it."""
         ss = float(np.dot(slope, slope))
-        shift = resid @ slope / ss if ss > 1e-18 else np.zeros(resid.shape[0])
-        step = self.s.dial_step_percent
-        index = np.round((dc + shift) / step)[:, None] + np.arange(-2, 3)[None, :]
-        return self.grid[np.clip(index, 0, self.grid.size - 1).astype(int)]
+        x = uc + (resid @ slope / ss if ss > 1e-18 else np.zeros(resid.shape[0]))
+        # position on the scale, extended linearly beyond its ends
+        pos = (np.interp(x, u, np.arange(u.size))
+               + np.where(x > u[-1], (x - u[-1]) / (u[-1] - u[-2]), 0.0)
+               + np.where(x < u[0], (x - u[0]) / (u[1] - u[0]), 0.0))
+        index = np.round(pos)[:, None] + np.arange(-2, 3)[None, :]
+        lo, hi = (0, u.size - 1) if bounds is None else (bounds[0][:, None], bounds[1][:, None])
+        return np.clip(index, lo, hi).astype(int)
+
+    def _later_bounds(self, resid: np.ndarray, slope: np.ndarray, sign: float, target: float,
+                      u: np.ndarray, uc: float) -> tuple[np.ndarray, np.ndarray]:
+        """Range of later dials (indices on the scale, per row) that keep the linear
+        look-ahead from passing the target by more than :data:`APPROACH_OVERSHOOT` of the
+        tolerance: at most the returned highest when rising (``sign`` +1), at least the
+        lowest when falling (−1). ``resid`` (rows, S): what the later dial has to add to
+        reach the target; ``slope``, ``u``, ``uc`` as for :meth:`_best_later`. A row no
+        later dial keeps from passing gets the mildest one (0 or the top)."""
+        n = u.size
+        lo, hi = np.zeros(resid.shape[0], dtype=int), np.full(resid.shape[0], n - 1)
+        acts = slope > 1e-3 * max(float(slope.max()), 0.0)  # samples the later dial moves
+        if not acts.any():
+            return lo, hi
+        # sign·(u(later) − uc)·slope ≤ cap + sign·resid at every sample it moves
+        cap = APPROACH_OVERSHOOT * self.s.tolerance * target
+        room = ((cap + sign * resid[:, acts]) / slope[acts]).min(axis=1)
+        tiny = 1e-9 * float(u[-1])
+        if sign > 0.0:
+            hi = np.clip(np.searchsorted(u, uc + room + tiny, side="right") - 1, 0, n - 1)
+        else:
+            lo = np.clip(np.searchsorted(u, uc - room - tiny, side="left"), 0, n - 1)
+        return lo, hi
 
     def full_dial_reach(self, y: np.ndarray, t: float, knobs: Knobs, until: float) -> float:
         """End-tidal agent fraction at ``until`` with the dial at its largest setting."""
@@ -598,9 +670,11 @@ def _assess(result: Result, segments: tuple[Segment, ...], runner: Runner,
                  f"({target / result.mac_percent:.2f} MAC)")
         limited_by = ""
         if met:
+            after = (f"largest deviation after settling {hold:.1f} %" if hold is not None
+                     else f"never within {50 * tol:g} % (up to {below:.1f} % below and "
+                          f"{above:.1f} % above)")
             message = (f"{label}: reached (within {100 * tol:g} %) at {reached:.1f} min and "
-                       f"held to {end:.0f} min; largest deviation after settling "
-                       f"{hold:.1f} %.")
+                       f"held to {end:.0f} min; {after}.")
         else:
             bad = judged & (np.abs(es) > tol)
             low, high = bad & (es < 0), bad & (es > 0)

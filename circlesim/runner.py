@@ -129,10 +129,7 @@ class Runner:
         row = self._rows.get(knobs)
         if row is not None:
             return row
-        key = knobs._replace(dial_percent=0.0)
-        if key not in self._dial_basis:
-            self._dial_basis[key] = self._basis(key)
-        basis = self._dial_basis[key]
+        basis = self._basis_of(knobs)
         if basis is None:
             row = self._assembled_row(knobs)
         else:
@@ -141,6 +138,30 @@ class Runner:
         if len(self._rows) < 200_000:
             self._rows[knobs] = row
         return row
+
+    def dial_effect(self, knobs: Knobs, dial_percent: np.ndarray | float) -> np.ndarray:
+        """The dial as it enters the model, in vol%: ``100 g(d / 100)`` with ``g`` the
+        function of the setting in which the parameters are linear (see :meth:`row`) —
+        ``d / (1 − d)``, the vapour per litre of carrier gas, for a plenum vaporizer, ``d``
+        for a draw-over one; ``dial_percent`` itself if neither form fits. (The
+        concentrations are not linear in it: the vapour also adds to the gas flows.)
+
+        Parameters
+        ----------
+        knobs : Knobs
+            The other settings in force (their dial is ignored).
+        dial_percent : float or ndarray, vol%
+        """
+        basis = self._basis_of(knobs)
+        d = np.asarray(dial_percent, dtype=float)
+        return d if basis is None else 100.0 * basis[2](d / 100.0)
+
+    def _basis_of(self, knobs: Knobs) -> tuple | None:
+        """:meth:`_basis` for the settings of ``knobs`` other than the dial (cached)."""
+        key = knobs._replace(dial_percent=0.0)
+        if key not in self._dial_basis:
+            self._dial_basis[key] = self._basis(key)
+        return self._dial_basis[key]
 
     def _basis(self, key: Knobs) -> tuple | None:
         top = self.max_dial

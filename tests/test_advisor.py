@@ -141,6 +141,33 @@ def test_saves_against_a_plain_high_flow_plan(advice):
     assert advice.reference.control.targets[0].met
 
 
+def test_savings_at_three_mac_compare_with_a_plain_plan_that_meets_the_target():
+    # regression: the plain 4 L/min plan's controller used to stall at 3 MAC, so the advice
+    # reported "-405 % saved". 3 MAC for an 80-year-old is 4.2 % end-tidal (Mapleson 1996).
+    patient = cs.Patient(weight_kg=75, height_cm=175, age_years=80)
+    vap = cs.Vaporizer("sevoflurane")
+    advice = advise(patient, cs.Circuit(), vap,
+                    Targets(end_tidal_mac=3.0, reach_within_min=8.0, duration_min=30.0),
+                    LIMITS, pareto=False)
+    target = 3.0 * vap.properties.mac_percent(80.0)
+    # independently: the fully open 8 % dial at 4 L/min reaches the 5 % band within 8 min ...
+    full = cs.simulate(patient, cs.Circuit(), cs.Plan(
+        [cs.Step(0, o2_l_min=2, air_l_min=2, dial_percent=8)], duration_min=30), vaporizer=vap)
+    ok_full = full.end_tidal_percent("agent") >= (1 - TARGETS.tolerance) * target
+    assert ok_full.any() and full.time_min[np.argmax(ok_full)] <= 8.0
+    # ... so the plain plan compared against must reach and hold it (on its own arrays)
+    ref = advice.reference
+    t, et = ref.time_min, ref.end_tidal_percent("agent")
+    inside = np.abs(et / target - 1.0) <= TARGETS.tolerance
+    assert inside.any() and t[np.argmax(inside)] <= 8.0
+    assert inside[np.argmax(inside):].all()
+    assert ref.control.targets[0].met
+    assert advice.feasible
+    assert 0.0 < advice.saved_percent < 100.0
+    assert advice.saved_ml == pytest.approx(float(ref.agent_delivered_ml[-1]) - advice.agent_ml)
+    assert "plan holding the same target" in advice.explanation
+
+
 def test_pareto_points_are_a_trade_off(advice):
     points = advice.pareto
     assert len(points) >= 2
@@ -212,6 +239,9 @@ def test_target_above_what_the_vaporizer_gives():
     full = cs.simulate(PATIENT, cs.Circuit(), cs.Plan(
         [cs.Step(0, o2_l_min=4, air_l_min=4, dial_percent=8)], duration_min=30))
     assert rerun.end_tidal_percent("agent")[-1] >= 0.9 * full.end_tidal_percent("agent")[-1]
+    # the plain plan cannot hold 9 % either, and the comparison says so
+    assert not result.reference.control.met
+    assert "does NOT hold the same target" in result.explanation
 
 
 def test_target_time_of_zero():

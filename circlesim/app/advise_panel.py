@@ -235,8 +235,10 @@ class AdvisePanel:
             head = (f"<div class='cs-saved'><b>Advised plan ({aim}):</b> "
                     f"{advice.agent_ml:.1f} mL of liquid {agent}, "
                      f"{advice.saved_ml:.1f} mL ({advice.saved_percent:.0f} %) less than a "
-                     f"plain {advice.reference_fgf_l_min:g} L/min plan holding the same "
-                     "target.</div>")
+                     f"plain {advice.reference_fgf_l_min:g} L/min plan "
+                     + ("holding the same target." if advice.reference_holds_target else
+                        "(which does not hold the same target: not a like-for-like "
+                        "comparison).") + "</div>")
         else:
             head = ("<div class='cs-error' role='alert'><b>The target cannot be met within "
                     "these limits.</b> " + " ".join(html.escape(p) for p in advice.problems)
