@@ -296,9 +296,14 @@ def test_target_mode_and_advise_in_browser(planner_url, browser_page):
     # Load it: the table shows the advised plan, which has no targets, and is predicted.
     page.locator(".cs-advise-load").click()
     page.wait_for_function(f"() => !({has_target})()")
-    cells = page.locator(".cs-plan-table .cs-col-target-mac input")
-    assert all(cells.nth(i).input_value() == "" for i in range(cells.count()))
-    assert page.locator(".cs-plan-table .cs-col-dial-percent input").first.input_value() != ""
+    # the table's cells reach the page through their own widget messages: wait for them too
+    page.wait_for_function(
+        "() => { const cells = [...document.querySelectorAll("
+        "'.cs-plan-table .cs-col-target-mac input')];"
+        " return cells.length > 0 && cells.every((e) => e.value === ''); }")
+    page.wait_for_function(
+        "() => { const e = document.querySelector('.cs-plan-table .cs-col-dial-percent input');"
+        " return e !== null && e.value !== ''; }")
     body = page.inner_text("body")
     assert "Traceback" not in body and "not a medical device" in body
     assert not errors, errors
