@@ -15,7 +15,7 @@ from .equipment import Absorber, Circuit, Vaporizer
 from .patient import Patient
 from .plan import Plan, Segment
 from .properties import NITROGEN, NITROUS_OXIDE, SolubleGas
-from .units import atpd_to_stpd, btps_to_stpd, liquid_ml_to_vapour_l_stpd
+from .units import atpd_to_stpd, btps_to_stpd, liquid_ml_to_vapour_l_stpd, ml_to_l
 from .validation import InputError
 
 __all__ = ["GAS_LABELS", "ModelInputs", "assemble"]
@@ -144,15 +144,15 @@ def assemble(patient: Patient, circuit: Circuit, absorber: Absorber, vaporizer: 
     agent = vaporizer.properties
     saturation = agent.vapour_pressure_kpa(circuit.gas_temperature_c) / circuit.ambient_pressure_kpa
     base = np.zeros(n_params)
-    base[m.P_VO2] = patient.vo2 / 1000.0
-    base[m.P_VCO2] = patient.vco2 / 1000.0
+    base[m.P_VO2] = ml_to_l(patient.vo2)
+    base[m.P_VCO2] = ml_to_l(patient.vco2)
     base[m.P_CARDIAC_OUTPUT] = patient.cardiac_output
     base[m.P_SHUNT] = patient.shunt_fraction
     base[m.P_K_BODY] = k_body
     base[m.P_LUNG_VOLUME] = patient.frc
-    base[m.P_LEAK] = k_circ * circuit.leak_ml_min / 1000.0
+    base[m.P_LEAK] = k_circ * ml_to_l(circuit.leak_ml_min)
     base[m.P_SAMPLE_LOST] = 0.0 if circuit.sample_returned else (
-        k_circ * circuit.sample_ml_min / 1000.0)
+        k_circ * ml_to_l(circuit.sample_ml_min))
     base[m.P_SAMPLE_INSPIRED] = circuit.inspiratory_fraction
     base[m.P_DRAW_OVER_GAS] = agent_index if vaporizer.placement == "inside" else -1
     base[m.P_DRAW_OVER_SATURATION] = min(saturation, 1.0)
@@ -176,8 +176,8 @@ def assemble(patient: Patient, circuit: Circuit, absorber: Absorber, vaporizer: 
     fresh = slices["fresh"]
     for i, seg in enumerate(segments):
         p = params[i]
-        minute_volume = seg.tidal_volume_ml * seg.rate_per_min / 1000.0
-        dead_flow = patient.dead_space * seg.rate_per_min / 1000.0
+        minute_volume = ml_to_l(seg.tidal_volume_ml) * seg.rate_per_min
+        dead_flow = ml_to_l(patient.dead_space) * seg.rate_per_min
         p[m.P_INSPIRED] = k_body * minute_volume
         p[m.P_DEAD_SPACE] = k_body * dead_flow
         carrier = np.zeros(n_gas)
