@@ -22,7 +22,7 @@ from typing import Any
 import numpy as np
 from scipy import stats
 
-from .validation import InputError, Interval, check_number
+from .validation import InputError, Interval, check_keys, check_number
 
 __all__ = ["Distribution", "Fixed", "LogNormal", "Normal", "Uniform", "distribution_from_dict"]
 
@@ -266,11 +266,8 @@ def distribution_from_dict(data: Any, where: str = "distribution") -> Distributi
         raise InputError(f"{where}.kind must be one of {', '.join(map(repr, _KINDS))}; got "
                          f"{kind!r}.")
     cls = _KINDS[kind]
-    allowed = {f.name for f in fields(cls)}  # type: ignore[arg-type]
-    unknown = sorted(set(data) - allowed)
-    if unknown:
-        raise InputError(f"{where} has unknown setting {unknown[0]!r}; a {kind} distribution "
-                         f"takes {', '.join(sorted(allowed))}.")
+    check_keys(where, data, (f.name for f in fields(cls)),  # type: ignore[arg-type]
+               allowed_words=f"a {kind} distribution takes")
     try:
         return cls(**data)
     except TypeError:

@@ -11,7 +11,14 @@ from __future__ import annotations
 from collections.abc import Iterable
 from dataclasses import dataclass, field, fields, replace
 
-from .validation import InputError, bounded, check_choice, check_fields, optional_bounded
+from .validation import (
+    InputError,
+    bounded,
+    check_choice,
+    check_fields,
+    check_keys,
+    optional_bounded,
+)
 
 __all__ = [
     "AIR_O2_FRACTION",
@@ -268,10 +275,7 @@ class Plan:
         """Build a plan from plain data (the TOML layout), naming any unknown key."""
         data = dict(data)
         known = {"name", "description", "duration_min", "steps"}
-        unknown = sorted(set(data) - known)
-        if unknown:
-            raise InputError(f"plan has unknown setting {unknown[0]!r}; allowed: "
-                             f"{', '.join(sorted(known))}.")
+        check_keys("plan", data, known)
         raw_steps = data.pop("steps", None)
         if not isinstance(raw_steps, list) or not raw_steps:
             raise InputError("plan.steps must be a list of at least one step "
@@ -281,10 +285,7 @@ class Plan:
         for i, raw in enumerate(raw_steps):
             if not isinstance(raw, dict):
                 raise InputError(f"plan.steps[{i}] must be a table; got {raw!r}.")
-            bad = sorted(set(raw) - step_keys)
-            if bad:
-                raise InputError(f"plan.steps[{i}] has unknown setting {bad[0]!r}; allowed: "
-                                 f"{', '.join(sorted(step_keys))}.")
+            check_keys(f"plan.steps[{i}]", raw, step_keys)
             if "time_min" not in raw:
                 raise InputError(f"plan.steps[{i}].time_min is missing (minutes from the "
                                  "start of the plan).")

@@ -32,7 +32,7 @@ from .equipment import Absorber, Circuit, Vaporizer
 from .files import write_text_atomic
 from .patient import Patient
 from .plan import Plan
-from .validation import InputError, Interval, check_number
+from .validation import InputError, Interval, check_keys, check_number
 
 __all__ = ["ReportSettings", "Scenario", "load_plan", "load_scenario", "plan_to_toml",
            "save_plan", "save_scenario", "scenario_from_toml"]
@@ -118,11 +118,7 @@ _SECTIONS = {"patient": Patient, "circuit": Circuit, "absorber": Absorber,
 def _build(kind: type, section: str, data: Any, where: str):
     if not isinstance(data, dict):
         raise InputError(f"{where}: [{section}] must be a table; got {data!r}.")
-    allowed = {f.name for f in fields(kind)}
-    unknown = sorted(set(data) - allowed)
-    if unknown:
-        raise InputError(f"{where}: [{section}] has unknown setting {unknown[0]!r}; allowed: "
-                         f"{', '.join(sorted(allowed))}.")
+    check_keys(f"{where}: [{section}]", data, (f.name for f in fields(kind)))
     try:
         return kind(**data)
     except InputError as exc:

@@ -26,6 +26,7 @@ __all__ = [
     "bounded",
     "check_choice",
     "check_fields",
+    "check_keys",
     "check_number",
     "optional_bounded",
 ]
@@ -143,6 +144,20 @@ def check_choice(owner: str, name: str, value: Any, choices: Iterable[str]) -> s
         return value.strip().lower()
     wording = ", ".join(repr(c) for c in choices)
     raise InputError(f"{owner}.{name} must be one of {wording}; got {value!r}.")
+
+
+def check_keys(where: str, data: dict, allowed: Iterable[str], *, what: str = "setting",
+               allowed_words: str = "allowed:") -> None:
+    """Refuse keys of ``data`` that are not in ``allowed``, naming the first one.
+
+    The message reads ``"{where} has unknown {what} 'key'; {allowed_words} a, b, c."``, so a
+    typo in a file never passes silently.
+    """
+    allowed = sorted(allowed)
+    unknown = sorted(set(data) - set(allowed))
+    if unknown:
+        raise InputError(f"{where} has unknown {what} {unknown[0]!r}; {allowed_words} "
+                         f"{', '.join(allowed)}.")
 
 
 def check_fields(obj: Any) -> None:

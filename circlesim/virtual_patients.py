@@ -29,7 +29,7 @@ import numpy as np
 from .distributions import Distribution, Fixed, LogNormal, Normal, Uniform, distribution_from_dict
 from .patient import Patient
 from .properties import BLOOD_GAS_SOURCES
-from .validation import InputError, Interval
+from .validation import InputError, Interval, check_keys
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -183,11 +183,7 @@ class PopulationSpec:
         """A spec from plain data; quantities left out keep their defaults."""
         if not isinstance(data, dict):
             raise InputError(f"{where} must be a table; got {data!r}.")
-        allowed = {f.name for f in fields(cls)}
-        unknown = sorted(set(data) - allowed)
-        if unknown:
-            raise InputError(f"{where} has unknown setting {unknown[0]!r}; allowed: "
-                             f"{', '.join(sorted(allowed))}.")
+        check_keys(where, data, (f.name for f in fields(cls)))
         kwargs: dict[str, Any] = {}
         for key, value in data.items():
             if key in ("intertissue_diffusion", "blood_gas_source"):

@@ -13,6 +13,19 @@ def caution_banner(width: int = 88) -> str:
     return "\n".join(textwrap.wrap("CAUTION: " + CAUTION, width))
 
 
+def add_report_options(parser, report_default: str, csv_help: str) -> None:
+    """The ``--report``, ``--no-report``, ``--csv`` and ``--overwrite`` options of commands
+    that print a table and write an HTML report."""
+    parser.add_argument("--report", type=Path, default=None,
+                        help=f"HTML report path (default {report_default}; an existing file is "
+                             "never replaced unless --overwrite is given, a free name is chosen "
+                             "instead)")
+    parser.add_argument("--no-report", action="store_true", help="only print the table")
+    parser.add_argument("--csv", type=Path, default=None, help=csv_help)
+    parser.add_argument("--overwrite", action="store_true",
+                        help="replace existing output files")
+
+
 def output_path(path: Path | None, default: Path, overwrite: bool) -> Path:
     """Where to write an output file: ``path`` (or ``default`` when None); unless
     ``overwrite``, the first free name next to it, so an existing file is never replaced."""

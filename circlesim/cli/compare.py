@@ -17,7 +17,7 @@ from ..costs import Prices
 from ..emissions import DEFAULT_GWP_HORIZON
 from ..files import write_text_atomic
 from ..validation import InputError
-from .common import caution_banner, output_path
+from .common import add_report_options, caution_banner, output_path
 
 #: Columns printed on the terminal: (key of CaseSummary.row, short header, format).
 TERMINAL_COLUMNS = (
@@ -44,14 +44,8 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
                     "curves of all plans on shared axes. Arguments may be files, folders "
                     "(every *.toml inside) or quoted glob patterns.")
     p.add_argument("scenarios", nargs="+", help="scenario TOML files, folders or patterns")
-    p.add_argument("--report", type=Path, default=None,
-                   help="HTML report path (default out/compare.html; an existing file is "
-                        "never replaced unless --overwrite is given, a free name is chosen "
-                        "instead)")
-    p.add_argument("--no-report", action="store_true", help="only print the table")
-    p.add_argument("--csv", type=Path, default=None,
-                   help="also write the full outcome table as CSV to this path")
-    p.add_argument("--overwrite", action="store_true", help="replace existing output files")
+    add_report_options(p, "out/compare.html",
+                       "also write the full outcome table as CSV to this path")
     p.add_argument("--gwp-horizon", default=str(DEFAULT_GWP_HORIZON),
                    help=f"GWP time horizon in years, 20 or 100 (default "
                         f"{DEFAULT_GWP_HORIZON})")

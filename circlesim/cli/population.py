@@ -18,7 +18,7 @@ from ..population import compare_populations, probability_table, save_outcomes
 from ..scenario import load_scenario
 from ..validation import InputError
 from ..virtual_patients import check_patient_count, load_population_spec, sample_patients
-from .common import caution_banner, output_path
+from .common import add_report_options, caution_banner, output_path
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -47,14 +47,8 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--workers", type=int, default=None,
                    help="local worker processes (default one per core; 1 runs in this "
                         "process)")
-    p.add_argument("--report", type=Path, default=None,
-                   help="HTML report path (default out/population.html; an existing file is "
-                        "never replaced unless --overwrite is given, a free name is chosen "
-                        "instead)")
-    p.add_argument("--no-report", action="store_true", help="only print the table")
-    p.add_argument("--csv", type=Path, default=None,
-                   help="also write every patient's characteristics and outcomes as CSV")
-    p.add_argument("--overwrite", action="store_true", help="replace existing output files")
+    add_report_options(p, "out/population.html",
+                       "also write every patient's characteristics and outcomes as CSV")
     p.add_argument("--interval", type=float, default=0.5, help="output interval, min "
                                                                "(default 0.5)")
     p.add_argument("--by", default="5,10,20,30",
