@@ -6,7 +6,7 @@ VENV ?= .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 
-.PHONY: setup demo cli-demo lab test lint bench validation clean
+.PHONY: setup demo cli-demo lab test lint bench validation screenshots clean
 
 setup: $(STAMP)
 
@@ -47,7 +47,12 @@ bench: setup
 
 ## validation: regenerate docs/validation.md from the published checks
 validation: setup
-	$(BIN)/python -m circlesim.validation_table docs/validation.md
+	$(BIN)/python -m circlesim.published docs/validation.md
+
+## screenshots: retake the user guide's pictures in docs/img (the tests never write there)
+screenshots: setup
+	CIRCLESIM_SCREENSHOT_DIR=docs/img CIRCLESIM_REQUIRE_BROWSER=1 PLAYWRIGHT_SKIP_BROWSER_DOWNLOAD=1 \
+		$(BIN)/python -m pytest -q -m browser tests/test_browser.py
 
 clean:
 	rm -rf $(VENV) build *.egg-info .pytest_cache out

@@ -22,8 +22,9 @@ import statistics
 import time
 
 import circlesim as cs
-from circlesim.advisor import Constraints, Targets, advise
-from circlesim.control import simulate_with_targets
+from circlesim.advisor.advise import advise
+from circlesim.advisor.inputs import Constraints, Targets
+from circlesim.targets.predict import simulate_with_targets
 
 CASES = (
     ("sevoflurane", 40, False),

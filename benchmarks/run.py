@@ -7,8 +7,9 @@ Usage::
 
 (a) One 4-hour plan with 12 steps for a 70 kg adult: the median time of
     :func:`circlesim.simulate` (inputs, integration, outputs, alerts) and of the bare compiled
-    integration (:func:`circlesim.solver.integrate`), beside the plain per-patient reference —
-    the same equations (:func:`circlesim.model.derivatives`) integrated by ``solve_ivp``
+    integration (:func:`circlesim.engine.solver.integrate`), beside the plain per-patient reference
+    —
+    the same equations (:func:`circlesim.engine.model.derivatives`) integrated by ``solve_ivp``
     segment by segment, Radau at rtol 1e-10 (the accuracy reference) and LSODA at rtol 1e-6
     (the same tolerance as circlesim's default). Accuracy: the largest difference in
     end-tidal fractions (every gas) and FIO2 against the Radau reference, relative to each
@@ -35,14 +36,14 @@ from collections.abc import Callable
 import numpy as np
 
 import circlesim as cs
-from circlesim import model as m
-from circlesim.assembly import assemble
-from circlesim.batch import simulate_batch
-from circlesim.distributed import local_workers
-from circlesim.population import run_population
-from circlesim.simulate import MAX_STEPS, output_times, solve_states
-from circlesim.solver import integrate
-from circlesim.virtual_patients import sample_patients
+from circlesim.base.distributed import local_workers
+from circlesim.engine import model as m
+from circlesim.engine.assembly import assemble
+from circlesim.engine.batch import simulate_batch
+from circlesim.engine.simulate import MAX_STEPS, output_times, solve_states
+from circlesim.engine.solver import integrate
+from circlesim.population.run import run_population
+from circlesim.population.virtual_patients import sample_patients
 
 REFERENCE = ("Radau", 1e-10)
 MATCHED = ("LSODA", 1e-6)

@@ -14,16 +14,17 @@ The main entry point is :func:`simulate`::
     result.frame()
 """
 
-from .alerts import Alert, AlertRule, default_rules
-from .cautions import CAUTION
-from .equipment import Absorber, Circuit, Vaporizer
-from .patient import Patient
-from .plan import Plan, Step
-from .properties import agent, agent_names
-from .result import Result
-from .scenario import Scenario, load_scenario
-from .simulate import SimulationError, simulate
-from .validation import InputError
+from circlesim.base.cautions import CAUTION
+from circlesim.base.validation import InputError
+from circlesim.domain.equipment import Absorber, Circuit, Vaporizer
+from circlesim.domain.patient import Patient
+from circlesim.domain.plan import Plan, Step
+from circlesim.engine.alerts import AlertRule, default_rules
+from circlesim.engine.result import Alert, Result
+from circlesim.engine.simulate import SimulationError
+from circlesim.properties import agent, agent_names
+from circlesim.scenario import Scenario, load_scenario
+from circlesim.targets.predict import simulate
 
 __version__ = "0.1.0"
 

@@ -16,8 +16,8 @@ import math
 from dataclasses import dataclass, field
 from types import MappingProxyType
 
-from .units import STANDARD_PRESSURE_KPA, kelvin, mmhg_to_kpa
-from .validation import InputError
+from circlesim.base.units import STANDARD_PRESSURE_KPA, kelvin, mmhg_to_kpa
+from circlesim.base.validation import InputError
 
 __all__ = [
     "AGENTS",

@@ -18,8 +18,9 @@ import numpy as np
 import pytest
 
 import circlesim as cs
-from circlesim.advisor import Constraints, Targets, advise
-from circlesim.validation import InputError, Interval
+from circlesim.advisor.advise import advise
+from circlesim.advisor.inputs import Constraints, Targets
+from circlesim.base.validation import InputError, Interval
 
 PATIENT = cs.Patient(weight_kg=70, height_cm=175, age_years=40, sex="male")
 PATIENT_MAC = cs.Vaporizer("sevoflurane").properties.mac_percent(40.0)  # Mapleson 1996: 1.80 %

@@ -12,7 +12,7 @@ import pytest
 import circlesim as cs
 from circlesim.app import PlannerApp
 from circlesim.app.export import export
-from circlesim.cautions import CAUTION
+from circlesim.base.cautions import CAUTION
 from circlesim.scenario import plan_to_toml, scenario_from_toml
 
 PLAN_ONLY = """

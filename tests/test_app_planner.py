@@ -12,7 +12,7 @@ from app_helpers import all_html, cell
 import circlesim as cs
 from circlesim.app import PlannerApp
 from circlesim.app.planner import demo_scenario
-from circlesim.cautions import CAUTION
+from circlesim.base.cautions import CAUTION
 
 
 @pytest.fixture

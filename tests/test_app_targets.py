@@ -16,7 +16,7 @@ from circlesim.app import PlannerApp
 from circlesim.app.export import snapshot_sections
 from circlesim.app.fields import format_number
 from circlesim.app.plan_editor import Column
-from circlesim.cautions import CAUTION
+from circlesim.base.cautions import CAUTION
 
 # Age-adjusted MAC of sevoflurane for the demo's 80-year-old: MAC40 1.80 % and
 # MAC_age = MAC40 × 10^(−0.00269 (age − 40)). Source: Mapleson, Br J Anaesth 1996;76:179-85.

@@ -11,8 +11,8 @@ from dataclasses import fields
 import pytest
 
 import circlesim as cs
+from circlesim.base.validation import InputError, Interval, OneOf
 from circlesim.scenario import ReportSettings, scenario_from_toml
-from circlesim.validation import InputError, Interval, OneOf
 
 KINDS = {cs.Patient: {}, cs.Circuit: {}, cs.Absorber: {}, cs.Vaporizer: {},
          cs.Step: {"time_min": 0.0}}

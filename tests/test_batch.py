@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 
 import circlesim as cs
-from circlesim.batch import BatchResult, simulate_batch
+from circlesim.engine.batch import BatchResult, simulate_batch
 
 RTOL = 1e-4
 FLOOR = 1e-12

@@ -3,10 +3,11 @@ port and Debian's Chromium, driven by Playwright, changes the fresh gas flow.
 
 No browser is downloaded: Playwright is pointed at /usr/bin/chromium. Without it the test is
 skipped locally, but fails when CIRCLESIM_REQUIRE_BROWSER=1 (as in CI, where .ci/run installs
-Chromium with apt-get). The test leaves docs/img/planner.png (used by docs/user-guide.md) and
-prints the time from a control change to the redrawn figure. A second test types an end-tidal
-target into the plan table, runs the Advise panel, loads its plan and leaves
-docs/img/planner-advise.png.
+Chromium with apt-get). The test prints the time from a control change to the redrawn figure.
+A second test types an end-tidal target into the plan table, runs the Advise panel and loads
+its plan. Screenshots and timings go to a temporary folder, so the working tree stays as it
+was; ``make screenshots`` sets CIRCLESIM_SCREENSHOT_DIR=docs/img to retake the user guide's
+pictures on purpose.
 """
 
 from __future__ import annotations
@@ -26,9 +27,9 @@ import pytest
 
 ROOT = Path(__file__).resolve().parents[1]
 CHROMIUM = Path("/usr/bin/chromium")
-SCREENSHOT = ROOT / "docs" / "img" / "planner.png"
-COMPARISON_SCREENSHOT = ROOT / "docs" / "img" / "planner-comparison.png"
-ADVISE_SCREENSHOT = ROOT / "docs" / "img" / "planner-advise.png"
+SCREENSHOT = "planner.png"
+COMPARISON_SCREENSHOT = "planner-comparison.png"
+ADVISE_SCREENSHOT = "planner-advise.png"
 CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
                  "--no-first-run", "--disable-background-networking",
                  "--disable-component-update", "--disable-sync"]
@@ -63,6 +64,15 @@ def browser_page():
         page.set_default_timeout(120_000)
         yield page
         browser.close()
+
+
+@pytest.fixture(scope="module")
+def shots(tmp_path_factory) -> Path:
+    """Where screenshots and timings go: a temporary folder, or CIRCLESIM_SCREENSHOT_DIR."""
+    chosen = os.environ.get("CIRCLESIM_SCREENSHOT_DIR")
+    folder = Path(chosen) if chosen else tmp_path_factory.mktemp("screenshots")
+    folder.mkdir(parents=True, exist_ok=True)
+    return folder
 
 
 def _free_port() -> int:
@@ -167,7 +177,7 @@ def _wait_for_new_curve(page, name: str, old: list[float]) -> dict:
     return page.evaluate(_READ_CURVE, name)
 
 
-def test_planner_in_browser(planner_url, browser_page):
+def test_planner_in_browser(planner_url, browser_page, shots):
     page = browser_page
     errors: list[str] = []
     page.on("pageerror", lambda exc: errors.append(str(exc)))
@@ -232,7 +242,7 @@ def test_planner_in_browser(planner_url, browser_page):
     curve = _wait_for_new_curve(page, name, curve["y"])
     page.locator(".cs-title").click()  # no text box keeps the focus outline
     page.wait_for_timeout(400)
-    _screenshot(page, SCREENSHOT)
+    _screenshot(page, shots / SCREENSHOT)
     page.locator(".cs-keep-reference").click()
     page.wait_for_function("() => document.querySelector('.js-plotly-plot').data.length > 20")
     page.evaluate(_WATCH)
@@ -242,22 +252,20 @@ def test_planner_in_browser(planner_url, browser_page):
         "() => document.querySelector('.cs-outcomes').innerText.includes('difference')")
     page.locator(".cs-title").click()
     page.wait_for_timeout(600)
-    _screenshot(page, COMPARISON_SCREENSHOT)
+    _screenshot(page, shots / COMPARISON_SCREENSHOT)
 
     assert not errors, errors
     report = {"first_page_s": round(first_page_s, 1),
               "latency_ms": [round(v, 1) for v in latencies],
               "median_ms": round(median, 1), "plan_min": 240}
-    out = ROOT / "out"
-    out.mkdir(exist_ok=True)
-    (out / "browser-latency.json").write_text(json.dumps(report, indent=1))
+    (shots / "browser-latency.json").write_text(json.dumps(report, indent=1))
     print(f"\nplanner in Chromium: first page {first_page_s:.1f} s; control change to redrawn "
           f"figure, 4-hour plan: median {median:.0f} ms over {len(latencies)} changes "
           f"(min {min(latencies):.0f}, max {max(latencies):.0f})")
-    assert median < 5000.0, "the figure took seconds to redraw; see out/browser-latency.json"
+    assert median < 5000.0, "the figure took seconds to redraw; see browser-latency.json"
 
 
-def test_target_mode_and_advise_in_browser(planner_url, browser_page):
+def test_target_mode_and_advise_in_browser(planner_url, browser_page, shots):
     """A target in the plan table draws the target line; Advise finds a plan and loads it."""
     page = browser_page
     errors: list[str] = []
@@ -292,7 +300,7 @@ def test_target_mode_and_advise_in_browser(planner_url, browser_page):
     print(f"\nAdvise panel in Chromium: {page.inner_text('.cs-advise-status')}")
     page.locator(".cs-title").click()
     page.wait_for_timeout(600)
-    _screenshot(page, ADVISE_SCREENSHOT)
+    _screenshot(page, shots / ADVISE_SCREENSHOT)
     # Load it: the table shows the advised plan, which has no targets, and is predicted.
     page.locator(".cs-advise-load").click()
     page.wait_for_function(f"() => !({has_target})()")

@@ -8,8 +8,8 @@ import pytest
 
 import circlesim as cs
 from circlesim.cli import main
-from circlesim.comparison import compare, compare_files, find_scenario_files
-from circlesim.costs import Prices
+from circlesim.domain.costs import Prices
+from circlesim.outcomes.comparison import compare, compare_files, find_scenario_files
 from circlesim.scenario import scenario_from_toml
 
 SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"

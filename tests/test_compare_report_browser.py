@@ -7,8 +7,8 @@ from pathlib import Path
 
 import pytest
 
-from circlesim.comparison import compare_files
-from circlesim.comparison_report import write_comparison_report
+from circlesim.outcomes.comparison import compare_files
+from circlesim.reports.comparison import write_comparison_report
 
 pytestmark = pytest.mark.browser
 

@@ -1,6 +1,6 @@
 """The compiled integrator never runs with stale machine code from numba's cache."""
 
-from circlesim.compiled_cache import discard_stale_cache
+from circlesim.base.compiled_cache import discard_stale_cache
 
 
 def test_cache_is_discarded_when_a_dependency_changes(tmp_path):

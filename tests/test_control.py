@@ -19,8 +19,9 @@ import numpy as np
 import pytest
 
 import circlesim as cs
-from circlesim.control import ControllerSettings, simulate_with_targets
-from circlesim.validation import InputError
+from circlesim.base.validation import InputError
+from circlesim.targets.predict import simulate_with_targets
+from circlesim.targets.settings import ControllerSettings
 
 TOLERANCE = 0.05  # the criterion, fraction of the target
 ADULT = cs.Patient(weight_kg=70, height_cm=175, age_years=40, sex="male")
@@ -299,7 +300,7 @@ def test_scenario_round_trip_keeps_targets(tmp_path):
 
 
 def test_assemble_refuses_target_steps():
-    from circlesim.assembly import assemble
+    from circlesim.engine.assembly import assemble
 
     with pytest.raises(InputError, match="holds an end-tidal target"):
         assemble(ADULT, cs.Circuit(), cs.Absorber(), cs.Vaporizer(),
@@ -333,7 +334,7 @@ def test_target_time_without_a_target():
 def _settings_bad_values():
     from dataclasses import fields
 
-    from circlesim.validation import Interval
+    from circlesim.base.validation import Interval
 
     for f in fields(ControllerSettings):
         constraint = f.metadata.get("constraint")

@@ -11,13 +11,13 @@ import numpy as np
 import pytest
 
 import circlesim as cs
-from circlesim.distributed import (
+from circlesim.base.distributed import (
     SchedulerUnreachableError,
     check_scheduler_address,
     map_chunks,
 )
-from circlesim.population import compare_populations
-from circlesim.virtual_patients import sample_patients
+from circlesim.population.run import compare_populations
+from circlesim.population.virtual_patients import sample_patients
 
 distributed = pytest.importorskip("distributed")
 

@@ -25,8 +25,8 @@ import numpy as np
 import pytest
 
 import circlesim as cs
-from circlesim.emergence import AWAKENING_MAC_FRACTION, decrement_curves, emergence
-from circlesim.validation import InputError
+from circlesim.advisor.emergence import AWAKENING_MAC_FRACTION, decrement_curves, emergence
+from circlesim.base.validation import InputError
 
 PATIENT = cs.Patient(weight_kg=70, height_cm=175, age_years=40, sex="male")
 AGENTS = ("desflurane", "sevoflurane", "isoflurane")

@@ -9,9 +9,9 @@ import numpy as np
 import pytest
 
 import circlesim as cs
-from circlesim import model as m
-from circlesim.assembly import assemble
-from circlesim.simulate import output_times, solve_states
+from circlesim.engine import model as m
+from circlesim.engine.assembly import assemble
+from circlesim.engine.simulate import output_times, solve_states
 
 METHODS = ["dopri5", "LSODA", "Radau"]
 

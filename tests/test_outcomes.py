@@ -7,10 +7,16 @@ import numpy as np
 import pytest
 
 import circlesim as cs
-from circlesim.costs import Prices, cost_of
-from circlesim.emissions import check_horizon, co2_equivalent_kg, gwp, open_circuit_agent_grams
-from circlesim.mac import age_adjusted_mac, mac_hours, total_mac
-from circlesim.outcomes import (
+from circlesim.base.units import GAS_CONSTANT, kelvin
+from circlesim.domain.costs import Prices, cost_of
+from circlesim.outcomes.emissions import (
+    check_horizon,
+    co2_equivalent_kg,
+    gwp,
+    open_circuit_agent_grams,
+)
+from circlesim.outcomes.mac import age_adjusted_mac, mac_hours, total_mac
+from circlesim.outcomes.summary import (
     extrapolate_canister_life,
     minutes_below,
     minutes_within,
@@ -20,7 +26,6 @@ from circlesim.outcomes import (
     time_to_reach,
 )
 from circlesim.properties import NITROUS_OXIDE
-from circlesim.units import GAS_CONSTANT, kelvin
 
 
 # ---- series measures on series with known answers ------------------------------------------

@@ -6,21 +6,21 @@ import pytest
 from scipy.optimize import brentq
 
 import circlesim as cs
-from circlesim.emissions import (
+from circlesim.base.units import molar_volume_l
+from circlesim.outcomes.emissions import (
     RYAN_NIELSEN_MOLAR_VOLUME_L,
     co2_equivalent_kg,
     gwp,
     open_circuit_agent_grams,
 )
-from circlesim.mac import (
+from circlesim.outcomes.mac import (
     age_adjusted_mac,
     agent_percent_for_total_mac,
     nitrous_oxide_mac,
     total_mac,
 )
-from circlesim.outcomes import summarise
+from circlesim.outcomes.summary import summarise
 from circlesim.properties import agent
-from circlesim.units import molar_volume_l
 
 # Source: Ryan SM, Nielsen CJ. Global warming potential of inhaled anesthetics: application to
 # clinical use. Anesth Analg 2010;111:92-8 (abstract):

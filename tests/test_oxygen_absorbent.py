@@ -11,8 +11,8 @@ import numpy as np
 import pytest
 
 import circlesim as cs
-from circlesim.oxygen import FreshGas, Setup, steady_state
-from circlesim.oxygen_absorbent import absorbent_by_flow, inspired_co2_rise_time
+from circlesim.oxygen.absorbent import absorbent_by_flow, inspired_co2_rise_time
+from circlesim.oxygen.setup import FreshGas, Setup, steady_state
 
 
 @pytest.mark.parametrize("share", [0.0, 1.0])

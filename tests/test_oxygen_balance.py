@@ -3,7 +3,7 @@
 Source of the closed forms: mass balance of O2 over the circle system (design brief §4:
 ``FIO2 = (FGF·FO2,fresh − VO2) / (FGF − VO2 − other uptake)``, derived in docs/oxygen.md). The
 brief's two forms are written out here from the patient's numbers and the unit conversions,
-independently of circlesim.oxygen_balance, and compared with the engine run to steady state.
+independently of circlesim.oxygen.balance, and compared with the engine run to steady state.
 Tolerance: 0.5 % absolute in FIO2 (the issue's acceptance check).
 """
 
@@ -11,9 +11,11 @@ import numpy as np
 import pytest
 
 import circlesim as cs
-from circlesim.assembly import assemble
-from circlesim.model import parameter_slices
-from circlesim.oxygen import (
+from circlesim.base.units import atpd_to_stpd, btps_to_stpd
+from circlesim.engine.assembly import assemble
+from circlesim.engine.model import parameter_slices
+from circlesim.oxygen.minimum import lowest_safe_o2_fraction
+from circlesim.oxygen.setup import (
     FreshGas,
     Setup,
     circuit_flows,
@@ -21,8 +23,6 @@ from circlesim.oxygen import (
     fresh_gas_stpd,
     steady_state,
 )
-from circlesim.oxygen_minimum import lowest_safe_o2_fraction
-from circlesim.units import atpd_to_stpd, btps_to_stpd
 
 TOLERANCE = 0.005  # FIO2, absolute (issue 5)
 FLOWS = (0.3, 0.5, 1.0, 2.0, 4.0)

@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 
 import circlesim as cs
-from circlesim.oxygen import Setup
+from circlesim.oxygen.setup import Setup
 
 BRODY_VO2_70KG = 10.0 * 70.0 ** 0.75  # mL/min STPD (Brody / Lowe & Ernst 1981)
 

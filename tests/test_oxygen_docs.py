@@ -6,9 +6,9 @@ from pathlib import Path
 import pytest
 
 import circlesim as cs
-from circlesim.oxygen import Setup, minimum_fgf_l_min, steady_state
-from circlesim.oxygen_minimum import lowest_safe_o2_fraction
-from circlesim.oxygen_nitrogen import body_nitrogen_store
+from circlesim.oxygen.minimum import lowest_safe_o2_fraction
+from circlesim.oxygen.nitrogen import body_nitrogen_store
+from circlesim.oxygen.setup import Setup, minimum_fgf_l_min, steady_state
 
 DOC = Path(__file__).resolve().parents[1] / "docs" / "oxygen.md"
 

@@ -8,10 +8,10 @@ import numpy as np
 import pytest
 
 import circlesim as cs
-from circlesim.cautions import CAUTION
+from circlesim.base.cautions import CAUTION
 from circlesim.cli import main
-from circlesim.oxygen import Setup
-from circlesim.oxygen_map import oxygen_map
+from circlesim.oxygen.flow_map import oxygen_map
+from circlesim.oxygen.setup import Setup
 
 ROOT = Path(__file__).resolve().parents[1]
 NOTEBOOK = ROOT / "notebooks" / "oxygen_at_minimal_flow.ipynb"
@@ -64,7 +64,7 @@ def test_cli_bad_input(tmp_path, capsys, args, message):
 
 
 def test_map_figure_has_the_threshold_contour(adult):
-    from circlesim.oxygen_figures import map_figure
+    from circlesim.reports.oxygen_figures import map_figure
 
     m = oxygen_map(Setup(adult), [0.5, 1.0, 2.0], [0.4, 0.6, 0.8], fio2_threshold=0.3,
                    duration_min=40.0)
@@ -81,7 +81,7 @@ def test_map_figure_has_the_threshold_contour(adult):
 
 
 def test_sheet_controls_update_the_figures_and_warnings(adult):
-    from circlesim.oxygen_sheet import OxygenSheet
+    from circlesim.app.oxygen_sheet import OxygenSheet
 
     sheet = OxygenSheet(Setup(adult))
     assert sheet.map is not None and sheet.course is not None
@@ -102,8 +102,8 @@ def test_sheet_controls_update_the_figures_and_warnings(adult):
 
 
 def test_report_without_plan_columns(adult, tmp_path):
-    from circlesim.oxygen_minimum import safe_fraction_table
-    from circlesim.oxygen_report import write_oxygen_report
+    from circlesim.oxygen.minimum import safe_fraction_table
+    from circlesim.reports.oxygen import write_oxygen_report
 
     setup = Setup(adult, cs.Circuit(leak_ml_min=100.0))
     table = safe_fraction_table(setup, [0.5, 1.0], duration_min=None)

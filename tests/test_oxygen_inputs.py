@@ -2,7 +2,8 @@
 their warnings.
 
 Expected messages name the field, the value and the allowed range (house rule). Sources for
-the alert thresholds: see circlesim.alerts.default_rules (FIO2 0.30 common practice; fresh-gas
+the alert thresholds: see circlesim.engine.alerts.default_rules (FIO2 0.30 common practice;
+fresh-gas
 O2 minimum defaulting to the FIO2 threshold by the mass balance; FGF below uptake by the mass
 balance).
 """
@@ -12,12 +13,12 @@ import math
 import pytest
 
 import circlesim as cs
-from circlesim.alerts import default_rules
-from circlesim.oxygen import FreshGas, Setup, minimal_flow_plan, steady_state
-from circlesim.oxygen_course import oxygen_course
-from circlesim.oxygen_losses import loss_effects
-from circlesim.oxygen_map import oxygen_map
-from circlesim.oxygen_minimum import lowest_safe_o2_fraction, safe_fraction_table
+from circlesim.engine.alerts import default_rules
+from circlesim.oxygen.course import oxygen_course
+from circlesim.oxygen.flow_map import oxygen_map
+from circlesim.oxygen.losses import loss_effects
+from circlesim.oxygen.minimum import lowest_safe_o2_fraction, safe_fraction_table
+from circlesim.oxygen.setup import FreshGas, Setup, minimal_flow_plan, steady_state
 
 ORIGINAL_RULES = ("fio2_low", "inspired_co2", "bag_empty", "bag_overfilled",
                   "sevoflurane_low_flow", "sevoflurane_mac_hours")

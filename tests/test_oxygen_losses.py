@@ -11,7 +11,8 @@ import pytest
 from scipy.optimize import brentq
 
 import circlesim as cs
-from circlesim.oxygen import (
+from circlesim.oxygen.losses import loss_effects, required_fgf_l_min, with_losses
+from circlesim.oxygen.setup import (
     FreshGas,
     Setup,
     circuit_flows,
@@ -19,7 +20,6 @@ from circlesim.oxygen import (
     minimum_fgf_l_min,
     steady_state,
 )
-from circlesim.oxygen_losses import loss_effects, required_fgf_l_min, with_losses
 
 MAKE_UP = FreshGas(1.0, 0.5, "air")
 

@@ -6,10 +6,10 @@ import numpy as np
 import pytest
 
 import circlesim as cs
-from circlesim.outcomes import time_to_reach
-from circlesim.oxygen import AIR_O2, FreshGas, Setup, steady_state
-from circlesim.oxygen_course import oxygen_course
-from circlesim.oxygen_minimum import lowest_safe_o2_fraction, safe_fraction_table
+from circlesim.outcomes.summary import time_to_reach
+from circlesim.oxygen.course import oxygen_course
+from circlesim.oxygen.minimum import lowest_safe_o2_fraction, safe_fraction_table
+from circlesim.oxygen.setup import AIR_O2, FreshGas, Setup, steady_state
 
 # Minimal flow 0.5 L/min: the trade's definition of minimal-flow anaesthesia (common practice).
 MINIMAL_FLOW = 0.5

@@ -14,15 +14,15 @@ import numpy as np
 import pytest
 
 import circlesim as cs
-from circlesim.model import AIR_N2
-from circlesim.oxygen import FreshGas, Setup
-from circlesim.oxygen_nitrogen import (
+from circlesim.base.units import btps_to_stpd
+from circlesim.engine.model import AIR_N2
+from circlesim.oxygen.nitrogen import (
     body_nitrogen_store,
     denitrogenation_study,
     tissue_nitrogen_l,
 )
+from circlesim.oxygen.setup import FreshGas, Setup
 from circlesim.properties import NITROGEN
-from circlesim.units import btps_to_stpd
 
 _PARTITION = {"brain": NITROGEN.brain_blood, "muscle": NITROGEN.muscle_blood,
               "fat": NITROGEN.fat_blood}

@@ -8,7 +8,7 @@ all flows in one unit (L STPD/min). Tolerance 0.005 absolute FIO2.
 import pytest
 
 import circlesim as cs
-from circlesim.units import atpd_to_stpd
+from circlesim.base.units import atpd_to_stpd
 
 
 @pytest.mark.parametrize("fgf,o2_share", [(0.5, 0.6), (0.5, 0.8), (1.0, 0.5), (2.0, 0.4)])

@@ -6,10 +6,17 @@ import numpy as np
 import pytest
 
 import circlesim as cs
-from circlesim.distributions import Fixed, LogNormal, Normal, Uniform, distribution_from_dict
-from circlesim.emissions import gwp
-from circlesim.outcomes import summarise
-from circlesim.population import (
+from circlesim.engine.simulate import output_times
+from circlesim.outcomes.emissions import gwp
+from circlesim.outcomes.summary import summarise
+from circlesim.population.distributions import (
+    Fixed,
+    LogNormal,
+    Normal,
+    Uniform,
+    distribution_from_dict,
+)
+from circlesim.population.run import (
     PopulationResult,
     compare_populations,
     outcomes_frame,
@@ -17,8 +24,7 @@ from circlesim.population import (
     run_population,
     save_outcomes,
 )
-from circlesim.simulate import output_times
-from circlesim.virtual_patients import (
+from circlesim.population.virtual_patients import (
     PopulationSpec,
     VirtualPatients,
     load_population_spec,
@@ -252,7 +258,7 @@ def test_output_grid_is_the_engine_grid(runs):
 
 def test_target_mode_plans_run_patient_by_patient():
     # A plan with an end-tidal target: the controller chooses each patient's dial, so each
-    # patient is run through the engine (circlesim.simulate) and put on the common grid.
+    # patient is run through the engine (circlesim.engine.simulate) and put on the common grid.
     plan = cs.Plan([cs.Step(0, o2_l_min=1.0, air_l_min=1.0, target_mac=1.0)],
                    duration_min=10.0, name="target 1 MAC")
     scenario = cs.Scenario(plan=plan)
@@ -271,7 +277,7 @@ def test_target_mode_plans_run_patient_by_patient():
 @pytest.mark.parametrize("basis", ["total", "agent"])
 def test_time_to_target_matches_the_single_patient_summary(basis):
     # With 60 % N2O the end-tidal target counts N2O's MAC fraction with the agent's
-    # ("total", as circlesim.outcomes.summarise) or the agent alone.
+    # ("total", as circlesim.outcomes.summary.summarise) or the agent alone.
     scenario = cs.Scenario(plan=cs.Plan([cs.Step(0, o2_l_min=1.6, n2o_l_min=2.4,
                                                  dial_percent=2.5)], duration_min=30.0,
                                         name="sevoflurane in N2O"))

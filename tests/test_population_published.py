@@ -22,9 +22,9 @@ import numpy as np
 import pytest
 
 import circlesim as cs
-from circlesim.distributions import Fixed, Uniform
-from circlesim.population import compare_populations
-from circlesim.virtual_patients import PopulationSpec, sample_patients
+from circlesim.population.distributions import Fixed, Uniform
+from circlesim.population.run import compare_populations
+from circlesim.population.virtual_patients import PopulationSpec, sample_patients
 
 DIALS = {"desflurane": 2.0, "sevoflurane": 1.0, "isoflurane": 0.4, "halothane": 0.3}
 TIMES_MIN = (1.0, 2.0, 5.0, 10.0, 15.0, 20.0, 30.0)

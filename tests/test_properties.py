@@ -13,14 +13,14 @@ from chemicals.vapor_pressure import Psat_data_AntoinePoling as ANTOINE_POLING
 from chemicals.vapor_pressure import Psat_data_WagnerPoling as WAGNER_POLING
 
 import circlesim as cs
-from circlesim.properties import AGENTS, NITROGEN, NITROUS_OXIDE, mac_at_age
-from circlesim.units import (
+from circlesim.base.units import (
     KPA_PER_MMHG,
     MOLAR_VOLUME_STPD_L,
     WATER_VAPOUR_37C_KPA,
     btps_to_stpd,
     kelvin,
 )
+from circlesim.properties import AGENTS, NITROGEN, NITROUS_OXIDE, mac_at_age
 
 CAS = {"sevoflurane": "28523-86-6", "isoflurane": "26675-46-7", "desflurane": "57041-67-5",
        "halothane": "151-67-7", "enflurane": "13838-16-9"}

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 import circlesim as cs
-from circlesim.published import (
+from circlesim.published.kinetics import (
     CHECKS,
     KINETICS_TESTS,
     NON_REBREATHING,
@@ -70,7 +70,8 @@ def test_yasuda_ranking_of_agents_is_exact(wash_in):
                          ids=lambda c: c.key)
 def test_published_values(check):
     # Each check carries its source, how the published value was obtained (abstract,
-    # secondary quotation, memory, derived) and its tolerance: see circlesim/published.py and
+    # secondary quotation, memory, derived) and its tolerance: see circlesim/published/kinetics.py
+    # and
     # the generated docs/validation.md.
     assert check.model_value() == pytest.approx(check.published, abs=check.tolerance)
 
@@ -130,11 +131,11 @@ def test_uptake_after_wash_in_between_root_time_and_constant_rate(agent):
 
 
 def test_validation_document_is_current():
-    # docs/validation.md is generated from circlesim/published.py; regenerate it with
+    # docs/validation.md is generated from circlesim/published/kinetics.py; regenerate it with
     # `make validation` when the model or the checks change.
     from pathlib import Path
 
-    from circlesim.published import validation_table
+    from circlesim.published.kinetics import validation_table
 
     doc = Path(__file__).resolve().parents[1] / "docs" / "validation.md"
     assert validation_table() in doc.read_text(encoding="utf-8")

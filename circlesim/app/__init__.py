@@ -12,6 +12,6 @@ reference plan), :mod:`.warnings_panel`, :mod:`.comparison` (outcomes table),
 :mod:`.style`.
 """
 
-from .planner import DEMO_SCENARIO, PlannerApp, planner
+from circlesim.app.planner import DEMO_SCENARIO, PlannerApp, planner
 
 __all__ = ["DEMO_SCENARIO", "PlannerApp", "planner"]

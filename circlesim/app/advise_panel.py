@@ -3,7 +3,7 @@
 The user gives the target (× age-adjusted MAC), the time allowed to reach it, what to aim for
 (least liquid agent, least CO2-equivalent, least time to target) and the main limits (lowest
 FIO2, lowest and highest fresh gas flow, largest dial, changes per hour, the agent's
-labelling). :func:`circlesim.advisor.advise` then searches a plan for the patient, breathing
+labelling). :func:`circlesim.advisor.advise.advise` then searches a plan for the patient, breathing
 system and vaporizer of the current prediction and the plan's length; the panel shows the
 plan, what it saves against a plain high-flow plan, the advisor's explanation and problems,
 its checks and the trade-off between time to target and agent used, and can load the plan into
@@ -19,18 +19,21 @@ from collections.abc import Callable
 
 import ipywidgets as w
 
-from ..advisor import Advice, Constraints, Targets, advise
-from ..plan import Plan
-from ..scenario import Scenario
-from ..simulate import SimulationError
-from ..validation import InputError
-from .comparison import table_html
-from .fields import CheckField, ChoiceField, NumberField, format_number
-from .warnings_panel import alerts_html
+from circlesim.advisor.advise import advise
+from circlesim.advisor.answer import Advice
+from circlesim.advisor.inputs import Constraints, Targets
+from circlesim.app.comparison import table_html
+from circlesim.app.fields import CheckField, ChoiceField, NumberField, format_number
+from circlesim.app.warnings_panel import alerts_html
+from circlesim.base.validation import InputError
+from circlesim.domain.plan import Plan
+from circlesim.engine.simulate import SimulationError
+from circlesim.scenario import Scenario
 
 __all__ = ["OBJECTIVE_CHOICES", "AdvisePanel"]
 
-#: What the advisor may aim for: (shown text, objective of :func:`~circlesim.advisor.advise`).
+#: What the advisor may aim for: (shown text, objective of
+#: :func:`~circlesim.advisor.advise.advise`).
 OBJECTIVE_CHOICES = (("least liquid agent", "agent"), ("least CO2-equivalent", "co2e"),
                      ("least time to target", "time"))
 
@@ -227,7 +230,7 @@ class AdvisePanel:
                       message)
 
     def _show(self, advice: Advice) -> None:
-        from ..advisor_plots import pareto_figure
+        from circlesim.reports.advice import pareto_figure
 
         agent = advice.result.agent
         if advice.feasible:

@@ -1,8 +1,8 @@
 """The outcomes table: the current plan alone, or beside a reference plan with differences.
 
-Values come from :func:`circlesim.outcomes.summarise` (see :class:`~circlesim.app.runner.
+Values come from :func:`circlesim.outcomes.summary.summarise` (see :class:`~circlesim.app.runner.
 Prediction`) and, for plans in target mode, from the controller's verdicts
-(:attr:`circlesim.control.ControlReport.targets`); this module only lays them out.
+(:attr:`circlesim.targets.settings.ControlReport.targets`); this module only lays them out.
 """
 
 from __future__ import annotations
@@ -11,9 +11,9 @@ import html
 from collections.abc import Callable
 from dataclasses import dataclass
 
-from ..control import TargetReport
-from ..outcomes import CaseSummary
-from .runner import Prediction
+from circlesim.app.runner import Prediction
+from circlesim.outcomes.summary import CaseSummary
+from circlesim.targets.settings import TargetReport
 
 __all__ = ["METRICS", "Metric", "outcome_table", "table_html", "target_status"]
 

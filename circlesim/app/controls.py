@@ -13,10 +13,10 @@ from dataclasses import replace
 
 import ipywidgets as w
 
-from ..patient import RULES
-from ..properties import agent, agent_names
-from ..scenario import Scenario
-from .fields import CheckField, ChoiceField, DerivedField, NumberField
+from circlesim.app.fields import CheckField, ChoiceField, DerivedField, NumberField
+from circlesim.domain.patient import RULES
+from circlesim.properties import agent, agent_names
+from circlesim.scenario import Scenario
 
 __all__ = ["SettingsPanel"]
 

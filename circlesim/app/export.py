@@ -1,7 +1,7 @@
 """Saving what the planner shows: the plan or scenario as TOML, the prediction as CSV, and a
 self-contained HTML snapshot.
 
-Every file goes through :func:`circlesim.files.write_text_atomic`. Unless "replace existing
+Every file goes through :func:`circlesim.base.files.write_text_atomic`. Unless "replace existing
 files" is ticked, a name already taken gets a free variant (``name-1.csv``, ``name-2.csv``…),
 so a user's file is never overwritten.
 """
@@ -9,6 +9,7 @@ so a user's file is never overwritten.
 from __future__ import annotations
 
 import html
+import os
 import re
 from collections.abc import Callable
 from dataclasses import asdict
@@ -17,16 +18,16 @@ from pathlib import Path
 import ipywidgets as w
 import tomli_w
 
-from ..cli.common import free_path
-from ..files import write_text_atomic
-from ..plan import Plan
-from ..report_html import Section, write_report
-from ..scenario import plan_to_toml
-from .comparison import outcome_table
-from .plan_editor import STEP_COLUMNS, cell_value
-from .runner import Prediction
+from circlesim.app.comparison import outcome_table
+from circlesim.app.plan_editor import STEP_COLUMNS, cell_value
+from circlesim.app.runner import Prediction
+from circlesim.base.files import write_text_atomic
+from circlesim.cli.common import free_path
+from circlesim.domain.plan import Plan
+from circlesim.reports.html import Section, write_report
+from circlesim.scenario import plan_to_toml
 
-__all__ = ["KINDS", "ExportPanel", "default_folder", "export"]
+__all__ = ["KINDS", "ExportPanel", "default_folder", "export", "shown_path"]
 
 #: Spacing of the exported time series, min (the command line's default).
 CSV_INTERVAL_MIN = 0.1
@@ -46,6 +47,15 @@ def default_folder() -> Path:
     return root / "out" if (root / "pyproject.toml").is_file() else Path.cwd() / "out"
 
 
+def shown_path(path: Path) -> str:
+    """``path`` as the app shows it: relative to the folder the app was started in, so no
+    machine's absolute path appears on screen (or in a screenshot)."""
+    try:
+        return os.path.relpath(Path(path).expanduser().resolve(), Path.cwd())
+    except ValueError:  # another drive (Windows): nothing shorter to show
+        return str(path)
+
+
 def _stem(name: str) -> str:
     return re.sub(r"[^A-Za-z0-9]+", "-", name).strip("-").lower() or "plan"
 
@@ -58,7 +68,7 @@ def _plan_rows(plan: Plan) -> tuple[list[str], list[list[object]]]:
 
 def snapshot_sections(current: Prediction, reference: Prediction | None) -> list[Section]:
     """Report sections: the plan, the figure with the warnings, and the outcomes."""
-    from ..plots import timeline_figure
+    from circlesim.reports.timeline import timeline_figure
 
     sc, result = current.scenario, current.result
     p = sc.patient
@@ -125,7 +135,7 @@ class ExportPanel:
     def __init__(self, predictions: Callable[[], tuple[Prediction | None, Prediction | None]],
                  folder: Path | None = None) -> None:
         self._predictions = predictions
-        self.folder = w.Text(value=str(folder or default_folder()),
+        self.folder = w.Text(value=shown_path(folder or default_folder()),
                              layout=w.Layout(flex="1 1 auto", width="auto"))
         self.stem = w.Text(value="", placeholder="from the plan's name",
                            layout=w.Layout(width="190px"))
@@ -159,11 +169,12 @@ class ExportPanel:
             return None
         stem = self.stem.value.strip() or current.scenario.plan.name
         try:
-            path = export(kind, current, reference, Path(self.folder.value).expanduser(), stem,
+            path = export(kind, current, reference, Path(self.folder.value).expanduser().resolve(),
+                          stem,
                           overwrite=self.overwrite.value)
         except OSError as exc:  # includes FileExistsNotOverwrittenError
             self.status.value = f"<div class='cs-error'>Not saved: {html.escape(str(exc))}</div>"
             return None
         self.status.value = (f"<div class='cs-saved'>Saved {KINDS[kind][0]} to "
-                             f"<code>{html.escape(str(path))}</code></div>")
+                             f"<code>{html.escape(shown_path(path))}</code></div>")
         return path

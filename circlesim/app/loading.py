@@ -12,8 +12,8 @@ from pathlib import Path
 
 import ipywidgets as w
 
-from ..scenario import Scenario, load_scenario, scenario_from_toml
-from ..validation import InputError
+from circlesim.base.validation import InputError
+from circlesim.scenario import Scenario, load_scenario, scenario_from_toml
 
 __all__ = ["LoadBar", "examples_folder", "merge_loaded"]
 

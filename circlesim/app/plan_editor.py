@@ -1,6 +1,6 @@
 """The plan editor: a table of steps that can be added, edited and removed.
 
-Each row is one :class:`~circlesim.plan.Step`; each column is described by a :class:`Column`.
+Each row is one :class:`~circlesim.domain.plan.Step`; each column is described by a :class:`Column`.
 A blank cell means "keep the previous setting" (flows and dial start at zero, ventilation at
 the patient's default; a blank Target in the first row means no target, and a target holds
 until a later step sets a dial or another target). Columns that are not step settings
@@ -17,9 +17,9 @@ from dataclasses import dataclass
 
 import ipywidgets as w
 
-from ..plan import Plan, Step
-from ..validation import InputError
-from .fields import format_number
+from circlesim.app.fields import format_number
+from circlesim.base.validation import InputError
+from circlesim.domain.plan import Plan, Step
 
 __all__ = ["STEP_COLUMNS", "Column", "PlanEditor", "cell_value", "locate_error"]
 
@@ -31,7 +31,7 @@ class Column:
     Parameters
     ----------
     key : str
-        A :class:`~circlesim.plan.Step` field, or any name for an extra column.
+        A :class:`~circlesim.domain.plan.Step` field, or any name for an extra column.
     header, unit : str
         Shown in the header row.
     width : str

@@ -26,20 +26,20 @@ from pathlib import Path
 
 import ipywidgets as w
 
-from ..plan import Plan
-from ..scenario import Scenario, load_scenario
-from ..validation import InputError
-from .advise_panel import AdvisePanel
-from .comparison import outcome_table, table_html
-from .controls import SettingsPanel
-from .export import ExportPanel
-from .fields import format_number
-from .fit_width import FitWidth
-from .loading import LoadBar, examples_folder
-from .plan_editor import PlanEditor, locate_error
-from .runner import Runner
-from .style import style_widget
-from .warnings_panel import alerts_html, caution_html, error_html
+from circlesim.app.advise_panel import AdvisePanel
+from circlesim.app.comparison import outcome_table, table_html
+from circlesim.app.controls import SettingsPanel
+from circlesim.app.export import ExportPanel
+from circlesim.app.fields import format_number
+from circlesim.app.fit_width import FitWidth
+from circlesim.app.loading import LoadBar, examples_folder
+from circlesim.app.plan_editor import PlanEditor, locate_error
+from circlesim.app.runner import Runner
+from circlesim.app.style import style_widget
+from circlesim.app.warnings_panel import alerts_html, caution_html, error_html
+from circlesim.base.validation import InputError
+from circlesim.domain.plan import Plan
+from circlesim.scenario import Scenario, load_scenario
 
 __all__ = ["DEMO_SCENARIO", "PlannerApp", "planner"]
 
@@ -230,7 +230,7 @@ class PlannerApp:
     # ---- internals ----------------------------------------------------------------------------
     def _draw(self) -> None:
         """Figure first (that is what the user watches), then the panels."""
-        from ..plots import refresh_timeline, timeline_figure
+        from circlesim.reports.timeline import refresh_timeline, timeline_figure
 
         current = self.runner.current
         results, labels = self.runner.shown()

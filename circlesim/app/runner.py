@@ -9,11 +9,11 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from ..outcomes import CaseSummary, summarise
-from ..result import Result
-from ..scenario import Scenario
-from ..simulate import SimulationError
-from ..validation import InputError
+from circlesim.base.validation import InputError
+from circlesim.engine.result import Result
+from circlesim.engine.simulate import SimulationError
+from circlesim.outcomes.summary import CaseSummary, summarise
+from circlesim.scenario import Scenario
 
 __all__ = ["Prediction", "Runner", "output_interval_for"]
 
@@ -48,7 +48,7 @@ class Prediction:
     result : Result
         The engine's output.
     summary : CaseSummary
-        From :func:`circlesim.outcomes.summarise` with the scenario's report settings.
+        From :func:`circlesim.outcomes.summary.summarise` with the scenario's report settings.
     """
 
     scenario: Scenario
@@ -68,7 +68,8 @@ def predict(scenario: Scenario) -> Prediction:
         scenario.plan.duration_min))
     report = scenario.report
     summary = summarise(result, target_end_tidal_mac=report.target_end_tidal_mac,
-                        report_times_min=report.report_times_min,
+                        report_times_min=report.within(
+                            scenario.plan.duration_min).report_times_min,
                         fio2_threshold=report.fio2_threshold)
     return Prediction(scenario, result, summary)
 

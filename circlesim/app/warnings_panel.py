@@ -1,8 +1,9 @@
 """The standing caution and the warnings of the current plan, as HTML.
 
-The warnings are the engine's alerts (:attr:`circlesim.result.Result.alerts`, the rules of
-:mod:`circlesim.alerts`), each with the time it starts, and, in target mode, the target
-controller's verdict on each target (:attr:`circlesim.control.ControlReport.targets`); nothing
+The warnings are the engine's alerts (:attr:`circlesim.engine.result.Result.alerts`, the rules of
+:mod:`circlesim.engine.alerts`), each with the time it starts, and, in target mode, the target
+controller's verdict on each target (:attr:`circlesim.targets.settings.ControlReport.targets`);
+nothing
 is re-derived here.
 """
 
@@ -11,9 +12,9 @@ from __future__ import annotations
 import html
 from collections.abc import Sequence
 
-from ..alerts import Alert
-from ..cautions import CAUTION
-from ..control import TargetReport
+from circlesim.base.cautions import CAUTION
+from circlesim.engine.result import Alert
+from circlesim.targets.settings import TargetReport
 
 __all__ = ["alerts_html", "caution_html", "error_html", "targets_html"]
 

@@ -10,10 +10,10 @@ import argparse
 import importlib
 import sys
 
-from ..cautions import CAUTION
-from ..files import FileExistsNotOverwrittenError
-from ..simulate import SimulationError
-from ..validation import InputError
+from circlesim.base.cautions import CAUTION
+from circlesim.base.files import FileExistsNotOverwrittenError
+from circlesim.base.validation import InputError
+from circlesim.engine.simulate import SimulationError
 
 #: Subcommand modules, in the order ``circlesim --help`` lists them.
 COMMANDS = ("run", "compare", "oxygen", "population", "advise", "emerge")
@@ -42,6 +42,10 @@ def main(argv: list[str] | None = None) -> int:
         return int(args.handler(args) or 0)
     except (InputError, FileExistsNotOverwrittenError, SimulationError) as exc:
         print(f"circlesim {args.command}: error: {exc}", file=sys.stderr)
+        return 2
+    except OSError as exc:  # a file or folder the command could not read or write
+        where = f" {exc.filename}" if exc.filename else ""
+        print(f"circlesim {args.command}: error:{where}: {exc.strerror or exc}", file=sys.stderr)
         return 2
 
 

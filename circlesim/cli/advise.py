@@ -12,10 +12,12 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from ..advisor import OBJECTIVES, Advice, Constraints, Targets, advise
-from ..emissions import DEFAULT_GWP_HORIZON
-from ..scenario import Scenario, load_scenario, save_scenario
-from .common import caution_banner, output_path
+from circlesim.advisor.advise import advise
+from circlesim.advisor.answer import Advice
+from circlesim.advisor.inputs import OBJECTIVES, Constraints, Targets
+from circlesim.cli.common import caution_banner, output_path
+from circlesim.outcomes.emissions import DEFAULT_GWP_HORIZON
+from circlesim.scenario import Scenario, load_scenario, save_scenario
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -84,7 +86,7 @@ def run(args: argparse.Namespace) -> int:
     print(format_advice(advice))
     advised = Scenario(plan=advice.plan, patient=scenario.patient, circuit=scenario.circuit,
                        absorber=scenario.absorber, vaporizer=scenario.vaporizer,
-                       report=scenario.report,
+                       report=scenario.report.within(advice.plan.duration_min),
                        title=f"{scenario.title or args.scenario.stem} (advised plan)",
                        question=advice.explanation.splitlines()[0])
     toml_path = output_path(None, args.out / f"{args.scenario.stem}-advised.toml",
@@ -125,10 +127,10 @@ def format_advice(advice: Advice) -> str:
 
 def write_advice_report(advice: Advice, path: Path, overwrite: bool) -> Path:
     """HTML report: the advised plan beside the plain plan, the trade-off and the checks."""
-    from ..advisor_plots import pareto_figure, target_figure
-    from ..plots import timeline_figure
-    from ..report_html import Section, write_report
-    from ..scenario import plan_to_toml
+    from circlesim.reports.advice import pareto_figure, target_figure
+    from circlesim.reports.html import Section, write_report
+    from circlesim.reports.timeline import timeline_figure
+    from circlesim.scenario import plan_to_toml
 
     ref_label = f"plain {advice.reference_fgf_l_min:g} L/min"
     sections = [

@@ -5,7 +5,7 @@ from __future__ import annotations
 import textwrap
 from pathlib import Path
 
-from ..cautions import CAUTION
+from circlesim.base.cautions import CAUTION
 
 
 def caution_banner(width: int = 88) -> str:

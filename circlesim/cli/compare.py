@@ -12,12 +12,12 @@ import shlex
 import sys
 from pathlib import Path
 
-from ..comparison import Comparison, compare_files, find_scenario_files
-from ..costs import Prices
-from ..emissions import DEFAULT_GWP_HORIZON
-from ..files import write_text_atomic
-from ..validation import InputError
-from .common import add_report_options, caution_banner, output_path
+from circlesim.base.files import write_text_atomic
+from circlesim.base.validation import InputError
+from circlesim.cli.common import add_report_options, caution_banner, output_path
+from circlesim.domain.costs import Prices
+from circlesim.outcomes.comparison import Comparison, compare_files, find_scenario_files
+from circlesim.outcomes.emissions import DEFAULT_GWP_HORIZON
 
 #: Columns printed on the terminal: (key of CaseSummary.row, short header, format).
 TERMINAL_COLUMNS = (
@@ -160,7 +160,7 @@ def run(args: argparse.Namespace) -> int:
         written = write_text_atomic(path, text, overwrite=args.overwrite)
         print(f"\nOutcome table written to {written}")
     if not args.no_report:
-        from ..comparison_report import write_comparison_report
+        from circlesim.reports.comparison import write_comparison_report
 
         path = output_path(args.report, Path("out") / "compare.html", args.overwrite)
         command = _command(paths, args)

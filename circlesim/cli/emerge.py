@@ -12,10 +12,15 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from ..emergence import AWAKENING_MAC_FRACTION, DECREMENTS, decrement_curves, emergence
-from ..scenario import load_scenario
-from ..validation import InputError
-from .common import caution_banner, output_path
+from circlesim.advisor.emergence import (
+    AWAKENING_MAC_FRACTION,
+    DECREMENTS,
+    decrement_curves,
+    emergence,
+)
+from circlesim.base.validation import InputError
+from circlesim.cli.common import caution_banner, output_path
+from circlesim.scenario import load_scenario
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:

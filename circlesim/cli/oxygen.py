@@ -9,14 +9,14 @@ from pathlib import Path
 import numpy as np
 import tomli_w
 
-from ..oxygen import Setup, check_threshold, minimum_fgf_l_min
-from ..oxygen_course import course_of_result
-from ..oxygen_map import oxygen_map
-from ..oxygen_minimum import safe_fraction_table
-from ..oxygen_report import describe_setup, setup_toml, write_oxygen_report
-from ..scenario import load_scenario
-from ..validation import InputError
-from .common import caution_banner, output_path
+from circlesim.base.validation import InputError
+from circlesim.cli.common import caution_banner, output_path
+from circlesim.oxygen.course import course_of_result
+from circlesim.oxygen.flow_map import oxygen_map
+from circlesim.oxygen.minimum import safe_fraction_table
+from circlesim.oxygen.setup import Setup, check_threshold, minimum_fgf_l_min
+from circlesim.reports.oxygen import describe_setup, setup_toml, write_oxygen_report
+from circlesim.scenario import load_scenario
 
 DEFAULT_FLOWS = "0.25,0.5,0.75,1,1.5,2,3,4"
 

@@ -12,13 +12,17 @@ import argparse
 import warnings
 from pathlib import Path
 
-from ..comparison import find_scenario_files
-from ..emissions import DEFAULT_GWP_HORIZON
-from ..population import compare_populations, probability_table, save_outcomes
-from ..scenario import load_scenario
-from ..validation import InputError
-from ..virtual_patients import check_patient_count, load_population_spec, sample_patients
-from .common import add_report_options, caution_banner, output_path
+from circlesim.base.validation import InputError
+from circlesim.cli.common import add_report_options, caution_banner, output_path
+from circlesim.outcomes.comparison import find_scenario_files
+from circlesim.outcomes.emissions import DEFAULT_GWP_HORIZON
+from circlesim.population.run import compare_populations, probability_table, save_outcomes
+from circlesim.population.virtual_patients import (
+    check_patient_count,
+    load_population_spec,
+    sample_patients,
+)
+from circlesim.scenario import load_scenario
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -101,7 +105,7 @@ def run(args: argparse.Namespace) -> int:
     print(table[shown].to_string(index=False, float_format=lambda v: f"{v:.3g}"))
     if not args.no_report:
         try:
-            from ..population_report import write_population_report
+            from circlesim.reports.population import write_population_report
         except ImportError as exc:
             raise InputError(f"the HTML report needs plotly ({exc}); install the app extra "
                              "(pip install 'circlesim[app]') or use --no-report.") from None

@@ -5,9 +5,9 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from ..outcomes import summarise
-from ..scenario import load_scenario
-from .common import caution_banner, output_path
+from circlesim.cli.common import caution_banner, output_path
+from circlesim.outcomes.summary import summarise
+from circlesim.scenario import load_scenario
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -34,7 +34,7 @@ def run(args: argparse.Namespace) -> int:
         try:
             times = tuple(float(x) for x in args.times.split(","))
         except ValueError:
-            from ..validation import InputError
+            from circlesim.base.validation import InputError
 
             raise InputError(f"--times must be comma-separated minutes; got {args.times!r}."
                              ) from None

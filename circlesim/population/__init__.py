@@ -1,0 +1,3 @@
+"""Virtual-patient populations: sourced distributions, the patient sampler, and population
+runs with bands and probabilities (analyses; no plotting).
+"""
