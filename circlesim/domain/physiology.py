@@ -255,12 +255,16 @@ class FitUncertainty:
         The case record the fit came from, and how far it reached (e.g. "first 30 min").
     not_identified : tuple of str
         Parameters the data could not identify (their spread is the prior's).
+    record : str
+        Path of the case record's TOML file, relative to the scenario file that holds this
+        fit ("" if unknown), so that a front end can show the measured points.
     """
 
     names: tuple[str, ...]
     covariance_log: np.ndarray
     source: str = ""
     not_identified: tuple[str, ...] = ()
+    record: str = ""
 
     def __post_init__(self) -> None:
         allowed = (*FACTOR_NAMES, "leak_ml_min")
@@ -299,18 +303,21 @@ class FitUncertainty:
         """The TOML layout of a scenario's ``[fit]`` section."""
         return {"names": list(self.names),
                 "covariance_log": [[float(v) for v in row] for row in self.covariance_log],
-                "source": self.source, "not_identified": list(self.not_identified)}
+                "source": self.source, "not_identified": list(self.not_identified),
+                "record": self.record}
 
     @classmethod
     def from_dict(cls, data: dict[str, Any], where: str = "fit") -> FitUncertainty:
         """Read the ``[fit]`` layout (see :meth:`to_dict`)."""
-        check_keys(where, data, ("names", "covariance_log", "source", "not_identified"))
+        check_keys(where, data, ("names", "covariance_log", "source", "not_identified",
+                                 "record"))
         try:
             return cls(names=tuple(data.get("names", ())),
                        covariance_log=np.array(data.get("covariance_log", []), dtype=float)
                        .reshape(len(data.get("names", ())), -1),
                        source=str(data.get("source", "")),
-                       not_identified=tuple(data.get("not_identified", ())))
+                       not_identified=tuple(data.get("not_identified", ())),
+                       record=str(data.get("record", "")))
         except (ValueError, TypeError) as exc:
             raise InputError(f"{where}: {exc}") from None
 
