@@ -28,7 +28,7 @@ from circlesim.base.distributed import map_chunks
 from circlesim.base.validation import InputError
 from circlesim.cases.check import check_case
 from circlesim.cases.columns import MeasuredSeries
-from circlesim.cases.fit import FitError, fit_case
+from circlesim.cases.fit import IDENTIFIED_SHRINK, FitError, fit_case
 from circlesim.cases.performance import Performance, pooled
 from circlesim.cases.priors import PARAMETERS, prior_for
 from circlesim.cases.record import CaseRecord
@@ -38,6 +38,9 @@ __all__ = ["Calibration", "CaseFitSummary", "calibrate", "profile_from_fits"]
 
 #: Smallest between-patient SD of a log parameter the calibration reports.
 MIN_SPREAD_LOG = 0.01
+#: Whitened information below this (the data narrowed the prior by less than about 2 %) is
+#: treated as none: it only passes on the optimiser's tolerance, amplified.
+_INFORMATIVE = 0.05
 #: EM iterations at most, and the change in μ that counts as converged.
 _EM_ITERATIONS = 500
 _EM_TOLERANCE = 1e-7
@@ -88,13 +91,23 @@ def profile_from_fits(fits: Sequence[CaseFitSummary], name: str, *,
     prior = prior_for(PARAMETERS)
     p0 = np.diag(1.0 / prior.sd_log ** 2)
     info, vec = [], []
+    root = prior.sd_log  # whitening: z = (θ − μ₀) / sd
     for f in good:
         precision = np.linalg.inv(f.covariance)
-        lik = precision - p0
+        # what the case's data alone say, in prior-whitened coordinates
+        lik = (precision - p0) * np.outer(root, root)
         w, v = np.linalg.eigh(0.5 * (lik + lik.T))
-        lik = (v * np.clip(w, 0.0, None)) @ v.T  # what the case's data alone say (PSD)
-        info.append(lik)
-        vec.append(precision @ f.theta - p0 @ prior.mean_log)
+        keep = w > _INFORMATIVE  # directions the data informed; the rest carry nothing
+        v, w = v[:, keep], w[keep]
+        gradient = (precision @ f.theta - p0 @ prior.mean_log) * root
+        estimate = v @ ((v.T @ gradient) / w) if w.size else np.zeros_like(root)
+        lik_w = (v * w) @ v.T
+        info.append(lik_w / np.outer(root, root))
+        vec.append((lik_w @ estimate) / root)
+    # A parameter the cases could not identify (most fits left it at its prior) keeps the
+    # prior's centre and spread: weak, mixed information would otherwise drift it anywhere.
+    shrink = np.array([np.sqrt(np.diag(f.covariance)) / prior.sd_log for f in good])
+    fixed = np.mean(shrink < IDENTIFIED_SHRINK, axis=0) < 0.5
     mu = prior.mean_log.copy()
     t_var = prior.sd_log ** 2
     for _ in range(_EM_ITERATIONS):
@@ -108,6 +121,8 @@ def profile_from_fits(fits: Sequence[CaseFitSummary], name: str, *,
         new_mu = means_arr.mean(axis=0)
         new_var = np.mean((means_arr - new_mu) ** 2 + covs_arr, axis=0)
         new_var = np.clip(new_var, MIN_SPREAD_LOG ** 2, 4.0 * prior.sd_log ** 2)
+        new_mu[fixed] = prior.mean_log[fixed]
+        new_var[fixed] = prior.sd_log[fixed] ** 2
         done = np.max(np.abs(new_mu - mu)) < _EM_TOLERANCE
         mu, t_var = new_mu, new_var
         if done:
@@ -116,6 +131,11 @@ def profile_from_fits(fits: Sequence[CaseFitSummary], name: str, *,
     for n, (lo, hi) in FACTOR_RANGE.items():
         medians[n] = min(max(medians[n], lo), hi)
     spread = {n: float(math.sqrt(v)) for n, v in zip(PARAMETERS, t_var, strict=True)}
+    if fixed.any():
+        kept = ", ".join(n.replace("_", " ") for n, f in zip(PARAMETERS, fixed, strict=True)
+                         if f)
+        note = f"not identified by these cases, kept at the population prior: {kept}"
+        description = f"{description}; {note}" if description else note
     return CohortProfile(name=name, factors=Factors(**medians), spread_log=spread,
                          description=description,
                          calibrated_on=tuple(f.name for f in good))

@@ -18,11 +18,12 @@ from circlesim.cases.check import CHECK_INTERVAL_MIN
 from circlesim.cases.columns import MeasuredSeries, floor_percent
 from circlesim.cases.fit import CaseFit, batch_predictions, data_points, fit_case
 from circlesim.cases.performance import Performance, performance
+from circlesim.cases.priors import noise_sd
 from circlesim.cases.record import CaseRecord
 
-__all__ = ["Forecast", "band_from_fit", "forecast_case"]
+__all__ = ["Band", "Forecast", "band_from_fit", "forecast_case"]
 
-#: Proposal of the band's draws: the Laplace approximation widened by this factor.
+#: The band's draws come from the Laplace approximation widened by this factor.
 _WIDEN = 1.5
 
 
@@ -42,12 +43,14 @@ class Forecast:
         Band of the model's curve over the parameter draws (monitor view).
     mode : dict of MeasuredSeries to ndarray, shape (T,), vol%
         The posterior-mode curve.
+    measured_low, measured_high : dict of MeasuredSeries to ndarray, shape (T,), vol%
+        The band a measurement is expected in: the curve's band with the monitor's noise.
     held_out : dict of MeasuredSeries to Performance or None
         Varvel's measures of the mode's forecast on the measurements after ``until_min``.
     prior_held_out : dict of MeasuredSeries to Performance or None
         The same for the unfitted model.
     coverage : dict of MeasuredSeries to float
-        Share of the held-out measurements inside the band (measurement noise not included).
+        Share of the held-out measurements inside ``measured_low``–``measured_high``.
     percentiles : tuple of float
     draws : int
     effective_draws : float
@@ -62,6 +65,8 @@ class Forecast:
     median: dict[MeasuredSeries, np.ndarray]
     high: dict[MeasuredSeries, np.ndarray]
     mode: dict[MeasuredSeries, np.ndarray]
+    measured_low: dict[MeasuredSeries, np.ndarray]
+    measured_high: dict[MeasuredSeries, np.ndarray]
     held_out: dict[MeasuredSeries, Performance | None]
     prior_held_out: dict[MeasuredSeries, Performance | None]
     coverage: dict[MeasuredSeries, float]
@@ -84,15 +89,33 @@ class Forecast:
         return rows
 
 
+@dataclass(frozen=True, eq=False)
+class Band:
+    """Percentile band of each measured series over parameter draws (vol%, shape (T,)).
+
+    ``low``/``median``/``high`` are of the model's curve; ``measured_low``/``measured_high``
+    also include the monitor's noise (where a measurement is expected to fall); ``mode`` is
+    the posterior-mode curve; ``effective_draws`` the Kish effective number of draws.
+    """
+
+    low: dict[MeasuredSeries, np.ndarray]
+    median: dict[MeasuredSeries, np.ndarray]
+    high: dict[MeasuredSeries, np.ndarray]
+    measured_low: dict[MeasuredSeries, np.ndarray]
+    measured_high: dict[MeasuredSeries, np.ndarray]
+    mode: dict[MeasuredSeries, np.ndarray]
+    effective_draws: float
+
+
 def band_from_fit(fit: CaseFit, record: CaseRecord, times_min: np.ndarray, *, draws: int = 200,
                   percentiles: tuple[float, float] = (5.0, 95.0), seed: int | None = 0
-                  ) -> tuple[dict, dict, dict, dict, float]:
-    """(low, median, high, mode, effective draws) of each measured series at ``times_min``.
+                  ) -> Band:
+    """The band of each measured series of ``record`` at ``times_min`` after ``fit``.
 
-    The draws come from the fit's Laplace approximation widened by 1.5 and are reweighted by
-    the exact posterior over the fitted measurements (sampling importance weights), so the
-    band follows the posterior where it is not Gaussian. The weights need one model run per
-    draw over the record, which the band needs anyway.
+    The draws come from the fit's Laplace approximation widened by :data:`_WIDEN` and are
+    reweighted by the exact posterior over the fitted measurements (sampling importance
+    weights), so the band follows the posterior where it is not Gaussian. The weights need one
+    model run per draw over the record, which the band needs anyway.
     """
     rng = np.random.default_rng(seed)
     proposal = (_WIDEN ** 2) * fit.covariance
@@ -118,13 +141,18 @@ def band_from_fit(fit: CaseFit, record: CaseRecord, times_min: np.ndarray, *, dr
     w /= w.sum()
     effective = float(1.0 / np.sum(w ** 2))
     where_band = np.searchsorted(at, times_min)
-    low, med, high, mode = {}, {}, {}, {}
+    low, med, high, mode, m_low, m_high = {}, {}, {}, {}, {}, {}
+    noise_scale = 1.0 / np.sqrt(fit.data_weight)
     for s, values in preds.items():
         values = values[:, where_band]
         mode[s] = values[0]
         low[s], med[s], high[s] = (_weighted_percentile(values[1:], w, q)
                                    for q in (percentiles[0], 50.0, percentiles[1]))
-    return low, med, high, mode, effective
+        gas = "agent" if s.gas == record.agent else s.gas
+        noisy = values[1:] + rng.standard_normal(values[1:].shape) * noise_scale * noise_sd(
+            gas, values[1:])
+        m_low[s], m_high[s] = (_weighted_percentile(noisy, w, q) for q in percentiles)
+    return Band(low, med, high, m_low, m_high, mode, effective)
 
 
 def _weighted_percentile(values: np.ndarray, weights: np.ndarray, q: float) -> np.ndarray:
@@ -176,8 +204,7 @@ def forecast_case(record: CaseRecord, until_min: float, *, draws: int = 200,
     later = record.after(until_min)
     step = min(CHECK_INTERVAL_MIN * 5, record.plan.duration_min / 200.0)
     times = np.union1d(np.arange(0.0, record.plan.duration_min + 1e-9, step), later.time_min)
-    low, med, high, mode, effective = band_from_fit(fit, record, times, draws=draws,
-                                                    percentiles=percentiles, seed=seed)
+    band = band_from_fit(fit, record, times, draws=draws, percentiles=percentiles, seed=seed)
     prior_theta = fit.prior.mean_log[None, :]
     prior_preds, _ = batch_predictions(later.with_scenario(fit.record.scenario), prior_theta,
                                        fit.prior)
@@ -185,10 +212,12 @@ def forecast_case(record: CaseRecord, until_min: float, *, draws: int = 200,
     idx = np.searchsorted(times, later.time_min)
     for s, measured in later.measured.items():
         floor = floor_percent(s.gas)
-        held[s] = performance(later.time_min, measured, mode[s][idx], floor)
+        held[s] = performance(later.time_min, measured, band.mode[s][idx], floor)
         prior_held[s] = performance(later.time_min, measured, prior_preds[s][0], floor)
         ok = np.isfinite(measured)
-        inside = (measured[ok] >= low[s][idx][ok]) & (measured[ok] <= high[s][idx][ok])
+        inside = ((measured[ok] >= band.measured_low[s][idx][ok])
+                  & (measured[ok] <= band.measured_high[s][idx][ok]))
         coverage[s] = float(inside.mean()) if ok.any() else float("nan")
-    return Forecast(record, fit, until_min, times, low, med, high, mode, held, prior_held,
-                    coverage, percentiles, draws, effective)
+    return Forecast(record, fit, until_min, times, band.low, band.median, band.high, band.mode,
+                    band.measured_low, band.measured_high, held, prior_held, coverage,
+                    percentiles, draws, band.effective_draws)

@@ -34,11 +34,11 @@ _INSIDE = 1e-6
 #: Every parameter a fit can estimate, in vector order.
 PARAMETERS = (*FACTOR_NAMES, "leak_ml_min")
 
-#: Leak prior: log-normal, median 30 mL/min, SD of log 1.2 (assumption: a workstation that
-#: passed its leak test loses well under 150 mL/min at working pressure — common practice —
-#: and anything from a few mL/min upwards is plausible).
-LEAK_PRIOR = (math.log(30.0), 1.2, "assumption: median 30 mL/min, log SD 1.2 (common practice "
-                                   "leak tests pass below about 150 mL/min)")
+#: Leak prior: log-normal, median 20 mL/min, SD of log 0.8, so 95 % below about 75 mL/min
+#: (assumption: a workstation that passed its leak test loses well under 150 mL/min at test
+#: pressure — common practice — and less at working pressure).
+LEAK_PRIOR = (math.log(20.0), 0.8, "assumption: median 20 mL/min, log SD 0.8 (leak tests pass "
+                                   "below about 150 mL/min at test pressure; common practice)")
 
 #: Monitor noise (SD) as (absolute vol%, fraction of the reading) per gas: assumption, about
 #: half the accuracy limits a multigas monitor must meet (ISO 80601-2-55: halogenated agents
