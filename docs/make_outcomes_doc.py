@@ -25,6 +25,7 @@ from circlesim.base.units import (
     vapour_l_stpd_to_liquid_ml,
 )
 from circlesim.domain.costs import Prices, cost_of
+from circlesim.outcomes.canister import extrapolate_canister_life
 from circlesim.outcomes.emissions import (
     RYAN_NIELSEN_MOLAR_VOLUME_L,
     co2_equivalent_kg,
@@ -39,7 +40,6 @@ from circlesim.outcomes.mac import (
     total_mac,
 )
 from circlesim.outcomes.summary import (
-    extrapolate_canister_life,
     minutes_within,
     overshoot_percent,
     settling_time,
@@ -188,7 +188,7 @@ is an **extrapolation**: the CO2 reaching the absorbent at the end of the plan (
 breakthrough point at which inspired CO2 starts to appear:
 `fresh canister = knee × capacity / rate`, `left = max(knee − used, 0) × capacity / rate`.
 Capacity = granule mass / 100 × capacity per 100 g (default 12.1 L/100 g, Higuchi et al.,
-Anesth Analg 2001;93:221–5). Code: `circlesim.outcomes.summary.extrapolate_canister_life`,
+Anesth Analg 2001;93:221–5). Code: `circlesim.outcomes.canister.extrapolate_canister_life`,
 `canister_life`. A test checks the extrapolation against a longer simulation.
 
 Worked example: 1000 g at 12.1 L/100 g = 121 L; knee 0.8; 30 % used; 0.154 L/min reaching

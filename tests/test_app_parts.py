@@ -6,7 +6,8 @@ import pytest
 
 import circlesim as cs
 from circlesim.app.comparison import outcome_table
-from circlesim.app.plan_editor import PlanEditor, locate_error
+from circlesim.app.plan_columns import locate_error
+from circlesim.app.plan_editor import PlanEditor
 from circlesim.app.runner import Runner, output_interval_for
 from circlesim.app.warnings_panel import alerts_html, error_html
 from circlesim.scenario import Scenario

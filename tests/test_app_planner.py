@@ -257,7 +257,7 @@ def test_warnings_panel_lists_alerts_with_start_times(app):
 
 
 def test_extension_points(app):
-    from circlesim.app.plan_editor import Column
+    from circlesim.app.plan_columns import Column
 
     clicked = []
     button = app.editor.add_action("Advise", lambda editor: clicked.append(editor.extras()))

@@ -15,7 +15,7 @@ import circlesim as cs
 from circlesim.app import PlannerApp
 from circlesim.app.export import snapshot_sections
 from circlesim.app.fields import format_number
-from circlesim.app.plan_editor import Column
+from circlesim.app.plan_columns import Column
 from circlesim.base.cautions import CAUTION
 
 # Age-adjusted MAC of sevoflurane for the demo's 80-year-old: MAC40 1.80 % and

@@ -23,3 +23,14 @@ def test_benchmark_script_prints_its_table(capsys):
         assert row in out, row
     accuracy = [line for line in out.splitlines() if "max rel. difference" in line]
     assert all(line.rstrip().endswith("yes") for line in accuracy)  # within 1e-3 of Radau
+
+
+def test_case_benchmark_script_runs(capsys):
+    spec = importlib.util.spec_from_file_location(
+        "circlesim_case_benchmarks", BENCH.parent / "cases.py")
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    assert module.main(["--quick"]) == 0
+    out = capsys.readouterr().out
+    for row in ("(a) check, 1.5 h case", "(b) fit, 6 parameters", "(c) calibrate 3 cases"):
+        assert row in out, row

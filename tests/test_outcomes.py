@@ -9,6 +9,7 @@ import pytest
 import circlesim as cs
 from circlesim.base.units import GAS_CONSTANT, kelvin
 from circlesim.domain.costs import Prices, cost_of
+from circlesim.outcomes.canister import extrapolate_canister_life
 from circlesim.outcomes.emissions import (
     check_horizon,
     co2_equivalent_kg,
@@ -17,7 +18,6 @@ from circlesim.outcomes.emissions import (
 )
 from circlesim.outcomes.mac import age_adjusted_mac, mac_hours, total_mac
 from circlesim.outcomes.summary import (
-    extrapolate_canister_life,
     minutes_below,
     minutes_within,
     overshoot_percent,

@@ -16,14 +16,13 @@ from circlesim.population.distributions import (
     Uniform,
     distribution_from_dict,
 )
-from circlesim.population.run import (
+from circlesim.population.result import (
     PopulationResult,
-    compare_populations,
     outcomes_frame,
     probability_table,
-    run_population,
     save_outcomes,
 )
+from circlesim.population.run import compare_populations, run_population
 from circlesim.population.virtual_patients import (
     PopulationSpec,
     VirtualPatients,

@@ -19,7 +19,7 @@ import ipywidgets as w
 import tomli_w
 
 from circlesim.app.comparison import outcome_table
-from circlesim.app.plan_editor import STEP_COLUMNS, cell_value
+from circlesim.app.plan_columns import STEP_COLUMNS, cell_value
 from circlesim.app.runner import Prediction
 from circlesim.base.files import write_text_atomic
 from circlesim.cli.common import free_path

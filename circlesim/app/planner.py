@@ -33,7 +33,8 @@ from circlesim.app.export import ExportPanel
 from circlesim.app.fields import format_number
 from circlesim.app.fit_width import FitWidth
 from circlesim.app.loading import LoadBar, examples_folder
-from circlesim.app.plan_editor import PlanEditor, locate_error
+from circlesim.app.plan_columns import locate_error
+from circlesim.app.plan_editor import PlanEditor
 from circlesim.app.runner import Runner
 from circlesim.app.style import style_widget
 from circlesim.app.warnings_panel import alerts_html, caution_html, error_html

@@ -34,7 +34,7 @@ from circlesim.cases.priors import PARAMETERS, prior_for
 from circlesim.cases.record import CaseRecord
 from circlesim.domain.physiology import FACTOR_RANGE, CohortProfile, Factors
 
-__all__ = ["Calibration", "CaseFitSummary", "calibrate", "profile_from_fits"]
+__all__ = ["Calibration", "CaseFitSummary", "calibrate", "fit_for_cohort", "profile_from_fits"]
 
 #: Smallest between-patient SD of a log parameter the calibration reports.
 MIN_SPREAD_LOG = 0.01
@@ -65,7 +65,7 @@ class CaseFitSummary:
     error: str = ""
 
 
-def _fit_one(record: CaseRecord, parallel: bool) -> CaseFitSummary:
+def fit_for_cohort(record: CaseRecord, parallel: bool) -> CaseFitSummary:
     """Fit one record with the population prior on every parameter (worker function)."""
     plain = record.with_scenario(replace(record.scenario, profile=None, fit=None))
     try:
@@ -152,7 +152,8 @@ class Calibration:
     default_errors : dict of str to dict of MeasuredSeries to Performance or None
         Per case: the textbook default model's measures.
     held_out_errors : dict of str to dict of MeasuredSeries to Performance or None
-        Per case: measures of the profile calibrated without that case.
+        Per case: measures of the profile calibrated without that case (also for cases that
+        could not be fitted themselves).
     problems : tuple of (str, str)
         Cases left out, with the reason.
     where : str
@@ -211,18 +212,17 @@ def calibrate(records: Sequence[CaseRecord], name: str, *, description: str = ""
     if len(records) < 2:
         raise InputError(f"calibrating a cohort needs at least 2 case records; got "
                          f"{len(records)}.")
-    run = map_chunks(_fit_one, records, scheduler=scheduler, workers=workers,
+    run = map_chunks(fit_for_cohort, records, scheduler=scheduler, workers=workers,
                      progress=progress)
     fits = tuple(run.results)
     profile = profile_from_fits(fits, name, description=description)
     problems = tuple((f.name, f.error) for f in fits if f.error)
     default_errors, held_out = {}, {}
     if leave_one_out:
-        usable = [(r, f) for r, f in zip(records, fits, strict=True) if not f.error]
-        for i, (record, _) in enumerate(usable):
+        for record, own in zip(records, fits, strict=True):
             plain = record.with_scenario(replace(record.scenario, profile=None, fit=None))
             default_errors[record.name] = check_case(plain).measures
-            others = [f for j, (_, f) in enumerate(usable) if j != i]
+            others = [f for f in fits if f is not own and not f.error]
             if len(others) < 2:
                 continue
             loo = profile_from_fits(others, f"{name} without {record.name}")

@@ -38,8 +38,9 @@ __all__ = ["CaseFit", "Estimate", "FitError", "batch_predictions", "data_points"
 
 #: Forward-difference step on the log scale.
 _STEP = 1e-3
-#: Fewest measured values a fit accepts.
-MIN_POINTS = 5
+#: Fewest measured values a fit accepts (the priors carry the rest; what the data cannot
+#: identify is reported as such).
+MIN_POINTS = 2
 #: A parameter is "not identified" when the data narrow its prior SD by less than this.
 IDENTIFIED_SHRINK = 0.9
 #: Integrator tolerance of the fit's model runs.

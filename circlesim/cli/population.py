@@ -16,7 +16,8 @@ from circlesim.base.validation import InputError
 from circlesim.cli.common import add_report_options, caution_banner, output_path
 from circlesim.outcomes.comparison import find_scenario_files
 from circlesim.outcomes.emissions import DEFAULT_GWP_HORIZON
-from circlesim.population.run import compare_populations, probability_table, save_outcomes
+from circlesim.population.result import probability_table, save_outcomes
+from circlesim.population.run import compare_populations
 from circlesim.population.virtual_patients import (
     check_patient_count,
     load_population_spec,

@@ -3,7 +3,8 @@
 Achieves: time to reach and time within ±10 % of an end-tidal target, settling time, peak and
 overshoot, MAC-hours (agent alone and with N2O added, Mapleson 1996), brain partial pressure at
 chosen times, lowest FIO2 and minutes below a threshold. Uses: liquid agent (mL and g), agent
-sent to the scavenger, N2O, absorbent and the canister life left, CO2-equivalent emissions
+sent to the scavenger, N2O, absorbent and the canister life left
+(:mod:`circlesim.outcomes.canister`), CO2-equivalent emissions
 (:mod:`circlesim.outcomes.emissions`) and cost at user-set prices (:mod:`circlesim.domain.costs`).
 Every formula with its source is in ``docs/outcomes.md``.
 """
@@ -19,6 +20,7 @@ from circlesim.base.units import vapour_l_stpd_to_grams
 from circlesim.base.validation import InputError, Interval, check_choice, check_number
 from circlesim.domain.costs import CostBreakdown, Prices, cost_of
 from circlesim.engine.result import Result
+from circlesim.outcomes.canister import CanisterLife, canister_life
 from circlesim.outcomes.emissions import (
     DEFAULT_GWP_HORIZON,
     Gwp,
@@ -30,10 +32,7 @@ from circlesim.outcomes.mac import mac_hours
 from circlesim.properties import NITROUS_OXIDE
 
 __all__ = [
-    "CanisterLife",
     "CaseSummary",
-    "canister_life",
-    "extrapolate_canister_life",
     "minutes_below",
     "minutes_within",
     "overshoot_percent",
@@ -112,72 +111,6 @@ def overshoot_percent(time_min: np.ndarray, values: np.ndarray, target: float) -
         return None
     peak = float(v[t >= reached].max(initial=target))
     return max(0.0, 100.0 * (peak - target) / target)
-
-
-@dataclass(frozen=True)
-class CanisterLife:
-    """Absorbent life extrapolated from the CO2 reaching it at the end of the plan.
-
-    The absorbent is taken to last until inspired CO2 starts to appear, that is until the
-    used fraction reaches the absorber's ``breakthrough_start``, with the end-of-plan settings
-    continuing unchanged. This is an extrapolation, not a prediction of the whole case.
-
-    Attributes
-    ----------
-    co2_to_absorbent_l_min : float
-        CO2 reaching the absorbent at the end of the plan, L STPD/min.
-    fresh_canister_min : float or None
-        Life of a fresh canister at that rate, min (None: no CO2 reaches it).
-    remaining_min : float or None
-        Life left in this canister at that rate, min (0 once breakthrough has begun; None: no
-        CO2 reaches it).
-    """
-
-    co2_to_absorbent_l_min: float
-    fresh_canister_min: float | None
-    remaining_min: float | None
-
-
-def extrapolate_canister_life(co2_to_absorbent_l_min: float, capacity_l: float,
-                              breakthrough_start: float, used_fraction: float) -> CanisterLife:
-    """Absorbent life if ``co2_to_absorbent_l_min`` keeps reaching it (see :class:`CanisterLife`).
-
-    ``fresh = knee × capacity / rate``; ``remaining = max(knee − used, 0) × capacity / rate``.
-
-    Parameters
-    ----------
-    co2_to_absorbent_l_min : float, L STPD/min, ≥ 0
-    capacity_l : float, L STPD of CO2, > 0
-    breakthrough_start : float, 0–1
-        Used fraction at which inspired CO2 starts to appear (the "knee").
-    used_fraction : float, 0–1
-        Fraction of the capacity already used.
-    """
-    owner = "extrapolate_canister_life"
-    rate = check_number(owner, "co2_to_absorbent_l_min", co2_to_absorbent_l_min,
-                        Interval(0.0, float("inf"), "L/min"))
-    capacity = check_number(owner, "capacity_l", capacity_l,
-                            Interval(0.0, float("inf"), "L", low_open=True))
-    knee = check_number(owner, "breakthrough_start", breakthrough_start, Interval(0.0, 1.0))
-    used = check_number(owner, "used_fraction", used_fraction, Interval(0.0, 1.0))
-    if rate <= 1e-9:
-        return CanisterLife(rate, None, None)
-    return CanisterLife(rate, knee * capacity / rate, max(knee - used, 0.0) * capacity / rate)
-
-
-def canister_life(result: Result) -> CanisterLife:
-    """Absorbent life at the end-of-plan rate of CO2 reaching it (see :class:`CanisterLife`).
-
-    The rate is the CO2 taken up at the end divided by the absorbent's efficiency then; once
-    the absorbent is fully spent (efficiency 0) nothing is left and no rate can be read.
-    """
-    efficiency = float(result.absorbent_efficiency[-1])
-    if efficiency <= 1e-9:
-        return CanisterLife(float("nan"), None, 0.0)
-    return extrapolate_canister_life(
-        max(float(result.absorbed_stpd[-1]), 0.0) / efficiency, result.absorbent_capacity_l,
-        result.absorber.breakthrough_start,
-        min(max(float(result.absorbent_used_fraction[-1]), 0.0), 1.0))
 
 
 @dataclass(frozen=True)

@@ -19,7 +19,7 @@ import plotly.graph_objects as go
 import tomli_w
 from plotly.subplots import make_subplots
 
-from circlesim.population.run import OUTCOMES, SERIES, PopulationResult, probability_table
+from circlesim.population.result import OUTCOMES, SERIES, PopulationResult, probability_table
 from circlesim.reports.html import Section, write_report
 from circlesim.scenario import plan_to_toml
 
