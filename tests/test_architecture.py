@@ -25,9 +25,10 @@ LAYERS: list[tuple[str, tuple[str, ...]]] = [
     ("target mode", ("targets",)),
     ("scenario files", ("scenario",)),
     ("outcomes", ("outcomes",)),
-    ("analyses", ("oxygen", "population", "advisor", "published")),
+    ("analyses", ("oxygen", "population", "advisor")),
     ("measured cases", ("cases",)),
     ("department review", ("department",)),
+    ("published checks", ("published",)),
     ("reports", ("reports",)),
     ("front ends", ("app", "cli", "__init__", "__main__")),
 ]

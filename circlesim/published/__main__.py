@@ -1,7 +1,7 @@
-"""``python -m circlesim.published [docs/validation.md]``: regenerate the validation tables."""
+"""``python -m circlesim.published [docs/validation.md]``: regenerate the validation document."""
 
 import sys
 
-from circlesim.published.kinetics import main
+from circlesim.published.document import main
 
 sys.exit(main())

@@ -113,6 +113,11 @@ def studies_table(folder: str | os.PathLike) -> str:
                      f"{_cell(r.esper, 'mdpe_percent')} | "
                      f"{_cell(r.held_out, 'mdpe_percent')} | "
                      f"{_cell(r.held_out, 'mdape_percent')} |")
+    rows = study_rows(folder)
+    default = [r.default.mdape_percent for r in rows if r.default is not None]
+    held = [r.held_out.mdape_percent for r in rows if r.held_out is not None]
+    lines.append(f"| **median over records** | | | | | | {np.median(default):.1f} | | | "
+                 f"{np.median(held):.1f} |")
     return "\n".join(lines)
 
 
