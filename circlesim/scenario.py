@@ -114,6 +114,15 @@ class Scenario:
         """The circuit the model runs (a profile may set its leak)."""
         return self.profile.apply(self.patient, self.circuit)[1] if self.profile else self.circuit
 
+    @property
+    def model_description(self) -> str:
+        """Which model a prediction for this scenario uses, for every output that shows one."""
+        if self.fit is not None:
+            return f"patient fitted to {self.fit.source or 'a measured case'}"
+        if self.profile is not None:
+            return self.profile.label()
+        return "textbook default model"
+
     def simulate(self, **kwargs: Any):
         """Run :func:`circlesim.simulate` on this scenario (with its profile, if any)."""
         from circlesim.targets.predict import simulate

@@ -12,10 +12,11 @@ import pytest
 
 import circlesim as cs
 from circlesim.base.validation import InputError, Interval, OneOf
+from circlesim.domain.physiology import Factors
 from circlesim.scenario import ReportSettings, scenario_from_toml
 
 KINDS = {cs.Patient: {}, cs.Circuit: {}, cs.Absorber: {}, cs.Vaporizer: {},
-         cs.Step: {"time_min": 0.0}}
+         cs.Step: {"time_min": 0.0}, Factors: {}}
 
 
 def _declared():

@@ -185,7 +185,8 @@ class AdvisePanel:
         self._busy(True)
         try:
             targets, constraints, objective = self.read(scenario)
-            advice = advise(scenario.patient, scenario.circuit, scenario.vaporizer, targets,
+            advice = advise(scenario.model_patient, scenario.model_circuit, scenario.vaporizer,
+                            targets,
                             constraints, objective, absorber=scenario.absorber)
         except (InputError, SimulationError) as exc:
             self.advice, self.error = None, self._words(str(exc))

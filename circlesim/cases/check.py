@@ -93,16 +93,6 @@ class CaseCheck:
         return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame()
 
 
-def model_label(record: CaseRecord) -> str:
-    """Which model a prediction for ``record`` uses."""
-    sc = record.scenario
-    if sc.fit is not None:
-        return f"patient fitted to {sc.fit.source or 'a measured case'}"
-    if sc.profile is not None:
-        return sc.profile.label()
-    return "textbook default model"
-
-
 def check_case(record: CaseRecord, *, rtol: float = 1e-6) -> CaseCheck:
     """Predict ``record``'s settings and score the prediction against its measurements.
 
@@ -121,4 +111,4 @@ def check_case(record: CaseRecord, *, rtol: float = 1e-6) -> CaseCheck:
     measures = {s: performance(record.time_min, record.measured[s], predicted[s],
                                floor_percent(s.gas))
                 for s in record.measured}
-    return CaseCheck(record, result, predicted, measures, model_label(record))
+    return CaseCheck(record, result, predicted, measures, record.scenario.model_description)

@@ -33,7 +33,8 @@ __all__ = ["DEFAULT_SERIES", "SyntheticTruth", "synthetic_case", "write_case"]
 
 #: Series a synthetic record measures by default (the agent's name filled in).
 DEFAULT_SERIES = (("inspired", "agent"), ("end_tidal", "agent"), ("inspired", "oxygen"),
-                  ("end_tidal", "oxygen"), ("end_tidal", "carbon_dioxide"))
+                  ("end_tidal", "oxygen"), ("inspired", "nitrous_oxide"),
+                  ("end_tidal", "nitrous_oxide"), ("end_tidal", "carbon_dioxide"))
 
 
 @dataclass(frozen=True, eq=False)

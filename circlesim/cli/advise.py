@@ -79,7 +79,7 @@ def run(args: argparse.Namespace) -> int:
         min_fgf_l_min=args.min_fgf, max_fgf_l_min=args.max_fgf,
         max_dial_percent=args.max_dial, max_changes_per_hour=args.changes_per_hour,
         dial_step_percent=args.dial_step, follow_labelling=not args.ignore_labelling)
-    advice = advise(scenario.patient, scenario.circuit, scenario.vaporizer, targets,
+    advice = advise(scenario.model_patient, scenario.model_circuit, scenario.vaporizer, targets,
                     constraints, args.objective, absorber=scenario.absorber,
                     pareto=not args.no_pareto, reference_fgf_l_min=args.reference_flow,
                     gwp_horizon_years=args.gwp_horizon)

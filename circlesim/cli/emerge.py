@@ -74,7 +74,8 @@ def run(args: argparse.Namespace) -> int:
         lines.append(f"   {p:8g} %   {_fmt(et):>9}   {_fmt(brain):>5}")
     if args.curves:
         curves = decrement_curves(
-            scenario.patient, scenario.circuit, scenario.vaporizer, absorber=scenario.absorber,
+            scenario.model_patient, scenario.model_circuit, scenario.vaporizer,
+            absorber=scenario.absorber,
             held_mac=args.held_mac, case_lengths_min=_lengths(args.case_lengths),
             maintenance_fgf_l_min=args.maintenance_fgf, washout_fgf_l_min=args.fgf,
             carrier=args.carrier, awakening_fraction=args.awake_fraction,

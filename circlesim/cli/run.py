@@ -56,6 +56,7 @@ def format_summary(scenario, result, s) -> str:
     lines.append(f"Patient: {p.weight_kg:g} kg, {p.height_cm:g} cm, {p.age_years:g} y, {p.sex}; "
                  f"VO2 used {s.vo2_ml_min:.0f} mL/min, cardiac output {p.cardiac_output:.1f} "
                  f"L/min, FRC {p.frc:.2f} L")
+    lines.append(f"Model: {scenario.model_description}")
     lines.append(f"Agent: {s.agent} ({result.vaporizer.placement} the circle); age-adjusted "
                  f"MAC {s.mac_percent:.2f} %")
     if s.time_to_target_min is None:

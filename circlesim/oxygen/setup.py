@@ -152,7 +152,8 @@ class Setup:
     @classmethod
     def from_scenario(cls, scenario: Scenario) -> Setup:
         """The patient and breathing system of a scenario (its plan is not used)."""
-        return cls(scenario.patient, scenario.circuit, scenario.vaporizer, scenario.absorber)
+        return cls(scenario.model_patient, scenario.model_circuit, scenario.vaporizer,
+                   scenario.absorber)
 
     def with_circuit(self, **changes) -> Setup:
         """A copy with some circuit fields changed (validated again)."""

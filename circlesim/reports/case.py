@@ -64,14 +64,15 @@ def check_figure(check: CaseCheck) -> go.Figure:
     for s in series:
         row = gases.index(s.gas) + 1
         colour = _colour(s.gas)
+        fig.add_trace(go.Scatter(x=check.record.time_min, y=check.record.measured[s],
+                                 mode="markers", name=f"{s.label}, measured", opacity=0.55,
+                                 marker={"color": colour, "size": 4,
+                                         "symbol": _SITE_SYMBOL[s.site]}), row=row, col=1)
         fig.add_trace(go.Scatter(x=result.time_min, y=series_values(result, s), mode="lines",
                                  name=f"{s.label}, predicted",
-                                 line={"color": colour, "dash": _SITE_DASH[s.site]}),
+                                 line={"color": "#222222" if s.site == "end_tidal" else colour,
+                                       "width": 2.5, "dash": _SITE_DASH[s.site]}),
                       row=row, col=1)
-        fig.add_trace(go.Scatter(x=check.record.time_min, y=check.record.measured[s],
-                                 mode="markers", name=f"{s.label}, measured",
-                                 marker={"color": colour, "size": 5,
-                                         "symbol": _SITE_SYMBOL[s.site]}), row=row, col=1)
     return fig
 
 
@@ -94,14 +95,15 @@ def forecast_figure(forecast: Forecast) -> go.Figure:
                                      fill="toself", line={"width": 0}, fillcolor=colour,
                                      opacity=shade, name=f"{s.label}, {what}",
                                      hoverinfo="skip"), row=row, col=1)
+        fig.add_trace(go.Scatter(x=forecast.record.time_min, y=forecast.record.measured[s],
+                                 mode="markers", name=f"{s.label}, measured", opacity=0.55,
+                                 marker={"color": colour, "size": 4,
+                                         "symbol": _SITE_SYMBOL[s.site]}), row=row, col=1)
         fig.add_trace(go.Scatter(x=t, y=forecast.mode[s], mode="lines",
                                  name=f"{s.label}, fitted patient",
-                                 line={"color": colour, "dash": _SITE_DASH[s.site]}),
+                                 line={"color": "#222222" if s.site == "end_tidal" else colour,
+                                       "width": 2.5, "dash": _SITE_DASH[s.site]}),
                       row=row, col=1)
-        fig.add_trace(go.Scatter(x=forecast.record.time_min, y=forecast.record.measured[s],
-                                 mode="markers", name=f"{s.label}, measured",
-                                 marker={"color": colour, "size": 5,
-                                         "symbol": _SITE_SYMBOL[s.site]}), row=row, col=1)
     fig.add_vrect(x0=0, x1=forecast.until_min, fillcolor="#999", opacity=0.12, line_width=0,
                   annotation_text="fitted", annotation_position="top left")
     return fig
