@@ -4,9 +4,34 @@ from __future__ import annotations
 
 import os
 import tempfile
+import tomllib
 from pathlib import Path
+from typing import Any
 
-__all__ = ["FileExistsNotOverwrittenError", "write_text_atomic"]
+from circlesim.base.validation import InputError
+
+__all__ = ["FileExistsNotOverwrittenError", "read_toml", "write_text_atomic"]
+
+
+def read_toml(path: str | os.PathLike, what: str) -> dict[str, Any]:
+    """Parse the TOML file at ``path``; ``what`` names it in messages ("case record", ...).
+
+    Raises
+    ------
+    InputError
+        If the path is a folder, does not exist, cannot be read, is not UTF-8 or not TOML.
+    """
+    path = Path(path)
+    if path.is_dir():
+        raise InputError(f"{what} {path} is a folder; give the path of its .toml file.")
+    try:
+        return tomllib.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise InputError(f"{what} {path} does not exist.") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"{what} {path} cannot be read: {exc}.") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"{what} {path} is not valid TOML: {exc}.") from None
 
 
 class FileExistsNotOverwrittenError(FileExistsError):

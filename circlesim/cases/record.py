@@ -19,13 +19,13 @@ from __future__ import annotations
 import csv
 import math
 import os
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
+from circlesim.base.files import read_toml
 from circlesim.base.validation import InputError, Interval, check_keys, check_number
 from circlesim.cases.columns import (
     SETTINGS,
@@ -348,16 +348,7 @@ def load_case(path: str | os.PathLike) -> CaseRecord:
         range.
     """
     path = Path(path)
-    if path.is_dir():
-        raise InputError(f"case record {path} is a folder; give the record's .toml file.")
-    try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise InputError(f"case record {path} does not exist.") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"case record {path} cannot be read: {exc}.") from None
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"case record {path} is not valid TOML: {exc}.") from None
+    data = read_toml(path, "case record")
     record = data.get("record")
     if not isinstance(record, dict) or not isinstance(record.get("measurements"), str):
         raise InputError(f"{path}: [record] measurements must name the CSV file of the "

@@ -23,13 +23,13 @@ from __future__ import annotations
 
 import math
 import os
-import tomllib
 from dataclasses import dataclass, field, fields, replace
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
+from circlesim.base.files import read_toml
 from circlesim.base.validation import (
     InputError,
     Interval,
@@ -227,14 +227,7 @@ def load_profile(path: str | os.PathLike) -> CohortProfile:
         If the file is missing, is not TOML, or holds unknown keys or invalid values.
     """
     path = Path(path)
-    try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise InputError(f"profile file {path} does not exist.") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"profile file {path} cannot be read: {exc}.") from None
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"profile file {path} is not valid TOML: {exc}.") from None
+    data = read_toml(path, "profile file")
     return profile_from_dict(data, str(path))
 
 

@@ -185,51 +185,18 @@ def build_result(inputs: ModelInputs, t_out: np.ndarray, states: np.ndarray,
 
 
 def simulate_dials(patient: Patient, circuit: Circuit, plan: Plan, *,
-             vaporizer: Vaporizer | None = None, absorber: Absorber | None = None,
-             output_interval_min: float = 0.1, method: str = "dopri5", rtol: float = 1e-6,
-             initial_state: np.ndarray | None = None, fio2_threshold: float = 0.30,
-             alert_rules: Iterable[AlertRule] | None = None) -> Result:
+                   vaporizer: Vaporizer | None = None, absorber: Absorber | None = None,
+                   output_interval_min: float = 0.1, method: str = "dopri5",
+                   rtol: float = 1e-6, initial_state: np.ndarray | None = None,
+                   fio2_threshold: float = 0.30,
+                   alert_rules: Iterable[AlertRule] | None = None) -> Result:
     """Predict what a plan of dial and flow settings does for ``patient`` in ``circuit``.
 
-    The engine knows nothing of end-tidal targets: a plan with target steps is refused here
-    and runs through :func:`circlesim.simulate` (:mod:`circlesim.targets.predict`), which
-    hands it to the target controller.
-
-    Parameters
-    ----------
-    patient : Patient
-    circuit : Circuit
-    plan : Plan
-        Dial and flow settings only (no end-tidal targets).
-    vaporizer : Vaporizer, optional
-        Default: a sevoflurane plenum vaporizer outside the circle.
-    absorber : Absorber, optional
-        Default: 1 kg of soda lime.
-    output_interval_min : float, min, 0.005–10
-        Spacing of the output times (step times are always included).
-    method : str
-        "dopri5" (compiled, default) or a ``scipy.integrate.solve_ivp`` method.
-    rtol : float, 1e-12–1e-2
-        Relative tolerance of the integrator.
-    initial_state : ndarray, optional
-        Continue from ``Result.final_state`` of an earlier run for the same patient and agent
-        (its cumulative amounts start again from zero).
-    fio2_threshold : float, 0.21–1
-        Lowest acceptable inspired O2 fraction for the alerts (ignored if ``alert_rules`` is
-        given).
-    alert_rules : iterable of AlertRule, optional
-        Rules to evaluate instead of :func:`circlesim.engine.alerts.default_rules`.
-
-    Returns
-    -------
-    Result
-
-    Raises
-    ------
-    InputError
-        For invalid inputs, naming the field, the value and the allowed range.
-    SimulationError
-        If the integrator fails.
+    Parameters, result and errors are those of :func:`circlesim.simulate`
+    (:func:`circlesim.targets.predict.simulate`), except that ``plan`` holds dial and flow
+    settings only: the engine knows nothing of end-tidal targets, and a plan with target steps
+    is refused here (it runs through :func:`circlesim.simulate`, which hands it to the
+    target controller).
     """
     vaporizer = Vaporizer() if vaporizer is None else vaporizer
     absorber = Absorber() if absorber is None else absorber
