@@ -65,9 +65,9 @@ def test_fit_recovers_the_identifiable_parameters():
 def test_forecast_band_covers_the_held_out_truth():
     # Fit the first 30 min of a 2-hour case, forecast the rest with a 5-95 % band of the
     # model's curve. Over many seeds the band should hold the noise-free truth at about its
-    # nominal 90 %. Measured (40 seeds, all five series): 78 %; per series 74-75 % for
-    # sevoflurane, 82-85 % for O2, 78 % for CO2 (docs/case-records.md discusses the shortfall).
-    # The test holds the average at 70 % or more so that a real regression fails.
+    # nominal 90 %. Measured (40 seeds, all five series): 84 %; per series 84-86 % for
+    # sevoflurane, 82-83 % for O2, 83 % for CO2 (docs/case-records.md discusses the shortfall).
+    # The test holds the average at 75 % or more so that a real regression fails.
     rng = np.random.default_rng(5)
     coverage = []
     for seed in range(16):
@@ -83,7 +83,7 @@ def test_forecast_band_covers_the_held_out_truth():
             coverage.append(inside.mean())
     mean = float(np.mean(coverage))
     print(f"\nforecast band (nominal 90 %) held the truth at {100 * mean:.0f} % of times")
-    assert 0.70 <= mean <= 0.995
+    assert 0.75 <= mean <= 0.995
 
 
 def test_forecast_with_the_wrong_structure_still_beats_the_prior():

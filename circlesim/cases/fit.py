@@ -34,7 +34,7 @@ from circlesim.engine.batch import BatchResult, simulate_batch
 from circlesim.scenario import Scenario
 
 __all__ = ["CaseFit", "Estimate", "FitError", "batch_predictions", "data_points", "fit_case",
-           "fit_parameters"]
+           "fit_parameters", "noise_of_values"]
 
 #: Forward-difference step on the log scale.
 _STEP = 1e-3
@@ -106,6 +106,17 @@ def data_points(record: CaseRecord) -> tuple[list[tuple[MeasuredSeries, np.ndarr
     return parts, np.concatenate(ys), np.concatenate(sds)
 
 
+def noise_of_values(parts: list[tuple[MeasuredSeries, np.ndarray]], agent: str,
+                    values: np.ndarray) -> np.ndarray:
+    """Monitor noise SD (vol%) of flattened ``values`` laid out as :func:`data_points`."""
+    out, start = [], 0
+    for s, idx in parts:
+        gas = "agent" if s.gas == agent else s.gas
+        out.append(noise_sd(gas, values[start:start + idx.size]))
+        start += idx.size
+    return np.concatenate(out) if out else np.zeros(0)
+
+
 def batch_predictions(record: CaseRecord, thetas: np.ndarray, prior: Prior, *,
                       rtol: float = FIT_RTOL, times_min: np.ndarray | None = None,
                       ) -> tuple[dict[MeasuredSeries, np.ndarray], BatchResult]:
@@ -167,6 +178,8 @@ class CaseFit:
     data_weight : float, 0–1
         Weight of the data in the posterior: 1, or less when the residuals exceed the noise
         model (1 / residual variance).
+    noise_sd : ndarray, shape (M,), vol%
+        Noise SD of each fitted value (in :func:`data_points` order), from the fitted curve.
     evaluations : int
         Batch runs of the model.
     message : str
@@ -181,6 +194,7 @@ class CaseFit:
     until_min: float | None
     noise_scale: float
     data_weight: float
+    noise_sd: np.ndarray
     evaluations: int
     message: str
 
@@ -263,7 +277,7 @@ def fit_case(record: CaseRecord, *, until_min: float | None = None,
             raise InputError(f"{where}: until_min must be above 0 and at most the record's "
                              f"length, {record.plan.duration_min:g} min; got {until_min:g}.")
         data = record.until(until_min)
-    parts, y, sd = data_points(data)
+    parts, y, sd = data_points(data)  # sd: noise of each reading, replaced in stage 2
     if y.size < MIN_POINTS:
         raise InputError(f"{where}: {y.size} measured value(s)"
                          + ("" if until_min is None else f" up to {until_min:g} min")
@@ -309,16 +323,24 @@ def fit_case(record: CaseRecord, *, until_min: float | None = None,
                            f"{prior.factors(theta)}.")
         return value, grad
 
-    start = np.clip(prior.mean_log, [b[0] for b in bounds],
-                    [b[1] for b in bounds])
-    try:
-        opt = minimize(objective, start, jac=True, method="L-BFGS-B", bounds=bounds,
-                       options={"maxiter": max_iterations, "ftol": 1e-10, "gtol": 1e-6})
-    except (InputError, FloatingPointError) as exc:
-        raise FitError(f"{where}: the fit failed: {exc}") from None
-    if not opt.success and opt.nit >= max_iterations:
-        raise FitError(f"{where}: the fit did not converge in {max_iterations} iterations "
-                       f"({opt.message}); try fewer parameters or more data.")
+    def minimise(start: np.ndarray):
+        try:
+            opt = minimize(objective, start, jac=True, method="L-BFGS-B", bounds=bounds,
+                           options={"maxiter": max_iterations, "ftol": 1e-10, "gtol": 1e-6})
+        except (InputError, FloatingPointError) as exc:
+            raise FitError(f"{where}: the fit failed: {exc}") from None
+        if not opt.success and opt.nit >= max_iterations:
+            raise FitError(f"{where}: the fit did not converge in {max_iterations} iterations "
+                           f"({opt.message}); try fewer parameters or more data.")
+        return opt
+
+    # Stage 1 weighs each value by the noise of its own reading; stage 2 by the noise of the
+    # predicted value (the readings' own noise would favour low readings, which biases the
+    # fit when the noise grows with the value), starting from stage 1.
+    opt = minimise(np.clip(prior.mean_log, [b[0] for b in bounds], [b[1] for b in bounds]))
+    sd = noise_of_values(parts, data.agent, predict(opt.x[None, :])[0])
+    cache.clear()
+    opt = minimise(np.asarray(opt.x, dtype=float))
     theta = np.asarray(opt.x, dtype=float)
     r, jac = residuals_and_jacobian(theta)
     dof = max(y.size - n_par, 1)
@@ -338,7 +360,8 @@ def fit_case(record: CaseRecord, *, until_min: float | None = None,
     return CaseFit(record=data, prior=prior, theta=theta, covariance=covariance,
                    estimates=tuple(estimates), until_min=until_min,
                    noise_scale=math.sqrt(float(r @ r) / max(y.size, 1)),
-                   data_weight=1.0 / scale2, evaluations=evaluations, message=str(opt.message))
+                   data_weight=1.0 / scale2, noise_sd=sd, evaluations=evaluations,
+                   message=str(opt.message))
 
 
 def _without_profile(scenario: Scenario) -> Scenario:

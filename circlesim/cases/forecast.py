@@ -123,7 +123,8 @@ def band_from_fit(fit: CaseFit, record: CaseRecord, times_min: np.ndarray, *, dr
     thetas = rng.multivariate_normal(fit.theta, proposal, size=draws, method="eigh")
     thetas = np.clip(thetas, bounds[:, 0], bounds[:, 1])
     thetas = np.vstack([fit.theta, thetas])
-    parts, y, sd = data_points(fit.record)
+    parts, y, _ = data_points(fit.record)
+    sd = fit.noise_sd
     fitted_times = fit.record.time_min
     at = np.union1d(times_min, fitted_times)
     own = record.with_scenario(fit.record.scenario)
