@@ -16,11 +16,10 @@ from pathlib import Path
 import tomli_w
 
 from circlesim.base.files import write_text_atomic
-from circlesim.base.validation import InputError
 from circlesim.cases.cohort import calibrate
 from circlesim.cases.record import load_cases
 from circlesim.cli.cases_common import format_rows
-from circlesim.cli.common import caution_banner, output_path
+from circlesim.cli.common import caution_banner, output_path, report_module
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -75,12 +74,8 @@ def run(args: argparse.Namespace) -> int:
     print(f"\nProfile written to {written}; a scenario uses it with profile = \"{written.name}\" "
           "(path relative to the scenario file).")
     if not args.no_report:
-        try:
-            from circlesim.reports.case import calibration_sections
-            from circlesim.reports.html import write_report
-        except ImportError as exc:
-            raise InputError(f"the HTML report needs plotly ({exc}); install the app extra "
-                             "or pass --no-report.") from None
+        calibration_sections = report_module("case").calibration_sections
+        write_report = report_module("html").write_report
         report = output_path(args.report, Path("out") / f"{safe}-calibration.html",
                              args.overwrite)
         written = write_report(report, f"circlesim cohort calibration: {profile.name}",

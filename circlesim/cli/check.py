@@ -11,11 +11,15 @@ import argparse
 from pathlib import Path
 
 from circlesim.base.files import write_text_atomic
-from circlesim.base.validation import InputError
 from circlesim.cases.check import check_case
 from circlesim.cases.record import load_case
 from circlesim.cli.cases_common import MEASURES_HEADER, MEASURES_LEGEND, format_rows
-from circlesim.cli.common import add_report_options, caution_banner, output_path
+from circlesim.cli.common import (
+    add_report_options,
+    caution_banner,
+    output_path,
+    report_module,
+)
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -51,11 +55,7 @@ def run(args: argparse.Namespace) -> int:
                                 overwrite=args.overwrite)
     print(f"\nSamples written to {written}")
     if not args.no_report:
-        try:
-            from circlesim.reports.case import write_case_report
-        except ImportError as exc:
-            raise InputError(f"the HTML report needs plotly ({exc}); install the app extra "
-                             "or pass --no-report.") from None
+        write_case_report = report_module("case").write_case_report
         path = output_path(args.report, Path("out") / f"{stem}-check.html", args.overwrite)
         print(f"Report written to {write_case_report(path, check, overwrite=args.overwrite)}")
     print()

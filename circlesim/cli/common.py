@@ -2,10 +2,13 @@
 
 from __future__ import annotations
 
+import importlib
 import textwrap
 from pathlib import Path
+from types import ModuleType
 
 from circlesim.base.cautions import CAUTION
+from circlesim.base.validation import InputError
 
 
 def caution_banner(width: int = 88) -> str:
@@ -43,3 +46,12 @@ def free_path(path: Path) -> Path:
         if not candidate.exists():
             return candidate
         k += 1
+
+
+def report_module(name: str) -> ModuleType:
+    """``circlesim.reports.<name>``, or a clear error when plotly (the app extra) is missing."""
+    try:
+        return importlib.import_module(f"circlesim.reports.{name}")
+    except ImportError as exc:
+        raise InputError(f"the HTML report needs plotly ({exc}); install the app extra "
+                         "(pip install 'circlesim[app]') or pass --no-report.") from None

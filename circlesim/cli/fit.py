@@ -15,13 +15,12 @@ from pathlib import Path
 
 import tomli_w
 
-from circlesim.base.validation import InputError
 from circlesim.cases.check import check_case
 from circlesim.cases.fit import fit_case
 from circlesim.cases.forecast import forecast_case
 from circlesim.cases.record import load_case
 from circlesim.cli.cases_common import MEASURES_HEADER, format_rows
-from circlesim.cli.common import caution_banner, output_path
+from circlesim.cli.common import caution_banner, output_path, report_module
 from circlesim.scenario import save_scenario
 
 
@@ -80,11 +79,7 @@ def run(args: argparse.Namespace) -> int:
     print("Fitted patient on the whole record:")
     print(format_rows(MEASURES_HEADER, whole.table()))
     if not args.no_report:
-        try:
-            from circlesim.reports.case import write_case_report
-        except ImportError as exc:
-            raise InputError(f"the HTML report needs plotly ({exc}); install the app extra "
-                             "or pass --no-report.") from None
+        write_case_report = report_module("case").write_case_report
         report = output_path(args.report, Path("out") / f"{stem}-fit.html", args.overwrite)
         written = write_case_report(report, whole, forecast=forecast, fit=fit,
                                     inputs_toml=tomli_w.dumps(scenario.to_dict()),
