@@ -23,3 +23,15 @@ def test_benchmark_script_prints_its_table(capsys):
         assert row in out, row
     accuracy = [line for line in out.splitlines() if "max rel. difference" in line]
     assert all(line.rstrip().endswith("yes") for line in accuracy)  # within 1e-3 of Radau
+
+
+def test_department_benchmark_prints_its_ratios(capsys):
+    path = BENCH.parent / "department.py"
+    spec = importlib.util.spec_from_file_location("circlesim_department_benchmark", path)
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    assert module.main(["--quick"]) == 0
+    out = capsys.readouterr().out
+    for row in ("reference: one simulate", "fit of the patient", "review of the case, 2 draws",
+                "60 cases at this length on one core"):
+        assert row in out, row

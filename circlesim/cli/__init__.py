@@ -16,7 +16,7 @@ from circlesim.base.validation import InputError
 from circlesim.engine.simulate import SimulationError
 
 #: Subcommand modules, in the order ``circlesim --help`` lists them.
-COMMANDS = ("run", "compare", "oxygen", "population", "advise", "emerge")
+COMMANDS = ("run", "compare", "oxygen", "population", "advise", "emerge", "review")
 
 
 def build_parser() -> argparse.ArgumentParser:
