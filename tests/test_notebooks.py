@@ -12,6 +12,7 @@ NOTEBOOKS = {
     "planner.ipynb": "VBox(",  # the app widget is displayed
     "oxygen_at_minimal_flow.ipynb": "N2 dissolved in the body",
     "compare_wash_in_strategies.ipynb": "P(target by 10 min)",
+    "department_review.ipynb": "INVENTED DATA",
 }
 
 
