@@ -122,14 +122,13 @@ class CaseReview:
 
 def follows_rule(record: CaseRecord, rule: FlowRule, course: EndTidalCourse) -> bool:
     """Whether the record's flows equal the rule's at every minute (within 0.05 L/min)."""
-    times = np.arange(0.0, record.plan.duration_min, 0.5)
-    for schedule_a, schedule_b in ((recorded_flows(record), rule_flows(rule, course)),):
-        for t in times:
-            a = [f for f in schedule_a if f.time_min <= t + 1e-9][-1]
-            b = [f for f in schedule_b if f.time_min <= t + 1e-9][-1]
-            if max(abs(a.o2_l_min - b.o2_l_min), abs(a.air_l_min - b.air_l_min),
-                   abs(a.n2o_l_min - b.n2o_l_min)) > FLOW_TOLERANCE_L_MIN + 1e-9:
-                return False
+    recorded, ruled = recorded_flows(record), rule_flows(rule, course)
+    for t in np.arange(0.0, record.plan.duration_min, 0.5):
+        a = [f for f in recorded if f.time_min <= t + 1e-9][-1]
+        b = [f for f in ruled if f.time_min <= t + 1e-9][-1]
+        if max(abs(a.o2_l_min - b.o2_l_min), abs(a.air_l_min - b.air_l_min),
+               abs(a.n2o_l_min - b.n2o_l_min)) > FLOW_TOLERANCE_L_MIN + 1e-9:
+            return False
     return True
 
 
