@@ -34,3 +34,15 @@ def test_case_benchmark_script_runs(capsys):
     out = capsys.readouterr().out
     for row in ("(a) check, 1.5 h case", "(b) fit, 6 parameters", "(c) calibrate 3 cases"):
         assert row in out, row
+
+
+def test_department_benchmark_prints_its_ratios(capsys):
+    path = BENCH.parent / "department.py"
+    spec = importlib.util.spec_from_file_location("circlesim_department_benchmark", path)
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    assert module.main(["--quick"]) == 0
+    out = capsys.readouterr().out
+    for row in ("reference: one simulate", "fit of the patient", "review of the case, 2 draws",
+                "60 cases at this length on one core"):
+        assert row in out, row

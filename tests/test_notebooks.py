@@ -13,6 +13,7 @@ NOTEBOOKS = {
     "oxygen_at_minimal_flow.ipynb": "N2 dissolved in the body",
     "compare_wash_in_strategies.ipynb": "P(target by 10 min)",
     "measured_cases.ipynb": "MDAPE % profile",
+    "department_review.ipynb": "INVENTED DATA",
 }
 
 

@@ -17,7 +17,7 @@ from circlesim.engine.simulate import SimulationError
 
 #: Subcommand modules, in the order ``circlesim --help`` lists them.
 COMMANDS = ("run", "compare", "oxygen", "population", "advise", "emerge", "check", "fit",
-            "calibrate")
+            "calibrate", "review")
 
 
 def build_parser() -> argparse.ArgumentParser:
