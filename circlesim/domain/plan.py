@@ -220,10 +220,10 @@ class Plan:
         InputError
             If a segment's fresh gas flow is outside 0.1–20 L/min or has less O2 than air.
         """
-        key = (tidal_volume_ml, rate_per_min, valve)
+        cache_key = (tidal_volume_ml, rate_per_min, valve)
         cache = self.__dict__.setdefault("_segments_cache", {})
-        if key in cache:
-            return cache[key]
+        if cache_key in cache:
+            return cache[cache_key]
         state = {"o2_l_min": 0.0, "air_l_min": 0.0, "n2o_l_min": 0.0, "dial_percent": 0.0,
                  "tidal_volume_ml": tidal_volume_ml, "rate_per_min": rate_per_min,
                  "valve": valve, "target_end_tidal_percent": None, "target_mac": None,
@@ -263,8 +263,8 @@ class Plan:
         # outcomes each ask for the same one)
         if len(cache) > 8:
             cache.clear()
-        cache[key] = tuple(out)
-        return cache[key]
+        cache[cache_key] = tuple(out)
+        return cache[cache_key]
 
     def with_steps(self, steps: Iterable[Step]) -> Plan:
         """A copy with other steps."""
