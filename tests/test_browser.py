@@ -108,7 +108,10 @@ def planner_url(tmp_path_factory):
          # As `make demo`: widget updates leave the server without waiting (no Nagle delay).
          "--Voila.kernel_websocket_connection_class=circlesim.app.serving.NoDelayConnection",
          # As `make demo`: a kernel is started and the notebook run before the page is asked.
-         "--preheat_kernel=True", "--pool_size=1"],
+         "--preheat_kernel=True", "--pool_size=1",
+         # ... and the next one only 20 s after a page took it, so that starting it does
+         # not compete with drawing the page.
+         "--VoilaKernelManager.fill_delay=20"],
         cwd=ROOT, env=env, stdout=log, stderr=subprocess.STDOUT)
     url = f"http://127.0.0.1:{port}/"
     try:
