@@ -19,9 +19,17 @@ Usage::
     numba's threads and on local worker processes, the per-patient speed-up over the
     references, and the accuracy for a sample of the patients against Radau at rtol 1e-10.
 
+(c) The planner's band: 200 similar patients over a 2-hour plan
+    (:func:`circlesim.population.band.run_band`: drawing, batch integration, percentiles and
+    outcome ranges), beside the same reference scaled to 200 patients and 2 hours.
+
 Goals (issue 7): (a) under 5 ms median for ``simulate``; (b) under 20 s on a 2-core machine;
 per patient at least 50 times faster than the ``solve_ivp`` reference. Issue 2's goal for (a):
-under 20 ms and within 1e-3 relative of the tight reference.
+under 20 ms and within 1e-3 relative of the tight reference. The planner issue: (a) less
+overhead around the integration (it was about 3 of 4 ms), (b) under 7 s on 2 cores with the
+accuracy unchanged, (c) under 300 ms. Wall times depend on the machine and its load (printed
+at the start and the end); the ratios against the same-run reference are the figures to
+compare between runs.
 """
 
 from __future__ import annotations
@@ -128,11 +136,14 @@ def bench_single(repeats: int) -> list[tuple]:
         inputs, t_out, method=MATCHED[0], rtol=MATCHED[1]), max(3, repeats // 5), warm_up=1)
     error = relative_difference(ours, ref, inputs, t_out)
     ms = 1e3
+    overhead = max(t_sim - t_bare, 0.0)
     return [
         ("(a) simulate, 4 h / 12 steps", t_sim * ms, c_sim * ms, "ms", t_ref / t_sim,
          t_matched / t_sim, "< 5 ms", t_sim < 0.005),
         ("(a) bare compiled integration", t_bare * ms, c_bare * ms, "ms", t_ref / t_bare,
          t_matched / t_bare, "", None),
+        ("(a) simulate minus bare integration (overhead)", overhead * ms, None, "ms",
+         t_ref / max(overhead, 1e-9), None, "< bare", overhead < t_bare),
         (f"(a) solve_ivp {REFERENCE[0]} rtol {REFERENCE[1]:g} (reference)", t_ref * ms,
          c_ref * ms, "ms", 1.0, t_matched / t_ref, "", None),
         (f"(a) solve_ivp {MATCHED[0]} rtol {MATCHED[1]:g} (same tolerance)", t_matched * ms,
@@ -175,9 +186,9 @@ def bench_population(n: int, check: int) -> list[tuple]:
     return [
         (f"(b) sampling {n} patients", t_sample, c_sample, "s", None, None, "", None),
         (f"(b) {n} patients x 4 h, this process", t_here, c_here, "s", ref / t_here,
-         match / t_here, "< 20 s", t_here < 20.0),
+         match / t_here, "< 7 s", t_here < 7.0),
         (f"(b) {n} patients x 4 h, {spread.where}", t_spread, c_spread, "s", ref / t_spread,
-         match / t_spread, "< 20 s", t_spread < 20.0),
+         match / t_spread, "< 7 s", t_spread < 7.0),
         ("(b) per patient, faster of the two", best / n * 1e3, None, "ms", ref / best,
          match / best, ">= 50x", ref / best >= 50.0),
         (f"(b) max rel. difference ET & FIO2, {len(sample)} patients", max(errors), None, "",
@@ -185,6 +196,27 @@ def bench_population(n: int, check: int) -> list[tuple]:
         ("(b) local processes give the same numbers", float(same), None, "", None, None, "",
          same),
     ]
+
+
+def bench_band(repeats: int) -> list[tuple]:
+    """(c) The planner's band: 200 similar patients over a 2-hour plan."""
+    from circlesim.population.band import BandSettings, run_band
+
+    patient = cs.Patient(weight_kg=78.0, height_cm=170.0, age_years=80.0, sex="female")
+    plan = cs.Plan([cs.Step(0, o2_l_min=2.0, air_l_min=4.0, dial_percent=3.0),
+                    cs.Step(8, o2_l_min=0.35, air_l_min=0.15, dial_percent=3.5),
+                    cs.Step(60, dial_percent=3.0)], duration_min=120.0)
+    scenario = cs.Scenario(plan=plan, patient=patient, vaporizer=cs.Vaporizer("sevoflurane"))
+    settings = BandSettings(patients=200)
+    t_band, c_band, band = median_time(lambda: run_band(scenario, settings), repeats,
+                                       warm_up=2)
+    inputs = assemble(patient, scenario.circuit, scenario.absorber, scenario.vaporizer, plan)
+    t_out = output_times(plan.duration_min, 0.5, plan.step_times)
+    t_ref, _, _ = median_time(lambda: solve_states(inputs, t_out, method=REFERENCE[0],
+                                                   rtol=REFERENCE[1]), 1, warm_up=0)
+    ref = t_ref * band.n
+    return [("(c) band: 200 patients x 2 h (run_band)", t_band * 1e3, c_band * 1e3, "ms",
+             ref / t_band, None, "< 300 ms", t_band < 0.3)]
 
 
 def format_table(rows: list[tuple]) -> str:
@@ -217,6 +249,7 @@ def main(argv: list[str] | None = None) -> int:
           f"Python {sys.version.split()[0]}, numpy {np.__version__}")
     rows = bench_single(repeats)
     rows += bench_population(n, 1 if args.quick else 5)
+    rows += bench_band(3 if args.quick else 15)
     print(format_table(rows))
     print("wall: elapsed time (median of repeats for (a)); CPU: processor time used by this "
           "process, its threads and its worker processes (on a shared machine wall > CPU / "

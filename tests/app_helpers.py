@@ -17,3 +17,8 @@ def all_html(widget) -> str:
             out.append(w.value)
         stack.extend(getattr(w, "children", ()))
     return "\n".join(out)
+
+
+def curves(figure) -> list:
+    """The figure's curves (the band's shaded traces, ``meta="band"``, left out)."""
+    return [t for t in figure.data if t.meta != "band"]

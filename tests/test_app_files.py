@@ -8,6 +8,7 @@ import tomllib
 
 import pandas as pd
 import pytest
+from app_helpers import curves
 
 import circlesim as cs
 from circlesim.app import PlannerApp
@@ -75,13 +76,13 @@ def test_upload_scenario_replaces_everything(app, tmp_path):
 ])
 def test_malformed_upload_shows_error_and_keeps_prediction(app, data, wording):
     good = app.runner.current
-    curve = list(app.figure.data[2].y)
+    curve = list(curves(app.figure)[2].y)
     _upload(app, "bad.toml", data)
     assert app.runner.current is good
     assert wording in app.error.value
     assert "bad.toml" in app.error.value
     assert "Traceback" not in app.error.value
-    assert list(app.figure.data[2].y) == curve
+    assert list(curves(app.figure)[2].y) == curve
     assert app.runner.current.scenario.plan == good.scenario.plan
 
 

@@ -9,7 +9,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from app_helpers import all_html, cell
+from app_helpers import all_html, cell, curves
 
 import circlesim as cs
 from circlesim.app import PlannerApp
@@ -90,7 +90,7 @@ def test_target_column_reaches_the_engine_and_the_figure(app):
     cell(app, 1, "target_within_min").value = ""
     cell(app, 1, "target_mac").value = ""
     assert app.runner.error is None and app.runner.current.result.control is None
-    assert app.figure is figure and len(figure.data) == 14
+    assert app.figure is figure and len(curves(figure)) == 14
     assert app.adopt_button.disabled
     assert "Target" not in app.warnings.value
 

@@ -8,7 +8,8 @@ In a notebook, or served as a web app by Voilà (``make demo``)::
 Modules: :mod:`.planner` (the app), :mod:`.controls` and :mod:`.fields` (settings panels),
 :mod:`.plan_editor` (the table of steps), :mod:`.runner` (engine runs, last good prediction,
 reference plan), :mod:`.warnings_panel`, :mod:`.comparison` (outcomes table),
-:mod:`.advise_panel` (the plan advisor), :mod:`.loading` and :mod:`.export` (files),
+:mod:`.advise_panel` (the plan advisor),
+:mod:`.band_panel` (the spread over similar patients), :mod:`.loading` and :mod:`.export` (files),
 :mod:`.style`.
 """
 

@@ -47,7 +47,7 @@ class Column:
     key: str
     header: str
     unit: str = ""
-    width: str = "66px"
+    width: str = "56px"
     kind: str = "number"
     choices: tuple[tuple[str, str], ...] = ()
     step_field: bool = True
@@ -69,22 +69,22 @@ STEP_COLUMNS: tuple[Column, ...] = (
     Column("air_l_min", "Air", "L/min", tooltip="air flowmeter"),
     Column("n2o_l_min", "N2O", "L/min", tooltip="nitrous oxide flowmeter"),
     Column("dial_percent", "Dial", "vol%", tooltip="vaporizer setting"),
-    Column("target_mac", "Target", "× MAC", width="62px", blank=("none", "keep"),
+    Column("target_mac", "Target", "× MAC", width="56px", blank=("none", "keep"),
            alternative=("%", "target_end_tidal_percent"),
            tooltip="target mode: end-tidal agent to hold, × age-adjusted MAC (or vol% typed "
                    "with a % sign, e.g. 1.6%); the controller then chooses the dial, so leave "
                    "the step's Dial blank. Holds until a later step sets a dial or a target."),
-    Column("target_within_min", "Within", "min", width="58px", blank=("", ""),
+    Column("target_within_min", "Within", "min", width="52px", blank=("", ""),
            tooltip="time allowed to reach this step's target (blank: as fast as the dial "
                    "allows)"),
     Column("inject_ml", "Inject", "mL liquid",
            tooltip="liquid agent injected into the circuit at this time"),
-    Column("tidal_volume_ml", "Tidal volume", "mL", width="78px"),
+    Column("tidal_volume_ml", "Tidal volume", "mL", width="64px"),
     Column("rate_per_min", "Rate", "/min"),
-    Column("valve", "Valve", "", width="82px", kind="choice",
+    Column("valve", "Valve", "", width="70px", kind="choice",
            choices=(("keep", ""), ("open", "open"), ("closed", "closed")),
            tooltip="pressure-limiting valve from this step on"),
-    Column("note", "Note", "", width="190px", kind="text"),
+    Column("note", "Note", "", width="130px", kind="text"),
 )
 
 

@@ -20,13 +20,22 @@ triggers a new prediction) or load a whole plan with ``app.show_plan(plan)``.
 from __future__ import annotations
 
 import html
+import threading
 import time
+from copy import deepcopy
 from dataclasses import replace
 from pathlib import Path
 
 import ipywidgets as w
 
 from circlesim.app.advise_panel import AdvisePanel
+from circlesim.app.band_panel import (
+    BandPanel,
+    BandWorker,
+    band_outcomes_html,
+    band_warnings_html,
+    on_main_thread,
+)
 from circlesim.app.comparison import outcome_table, table_html
 from circlesim.app.controls import SettingsPanel
 from circlesim.app.export import ExportPanel
@@ -40,6 +49,7 @@ from circlesim.app.style import style_widget
 from circlesim.app.warnings_panel import alerts_html, caution_html, error_html
 from circlesim.base.validation import InputError
 from circlesim.domain.plan import Plan
+from circlesim.population.band import Band
 from circlesim.scenario import Scenario, load_scenario
 
 __all__ = ["DEMO_SCENARIO", "PlannerApp", "planner"]
@@ -48,6 +58,9 @@ __all__ = ["DEMO_SCENARIO", "PlannerApp", "planner"]
 DEMO_SCENARIO = "flow_reduction_sevoflurane.toml"
 
 _MIRRORED = ("tidal_volume_ml", "rate_per_min")
+#: Height of the figure, px: its agent and oxygen panels fit a 768-pixel-high screen beside
+#: the plan.
+FIGURE_HEIGHT_PX = 700
 
 
 def demo_scenario() -> Scenario:
@@ -68,6 +81,9 @@ class PlannerApp:
         What to show first (default: the demo scenario).
     output_folder : path, optional
         Where exports go (default ``out/``).
+    scenario_folder : path, optional
+        Folder of the scenario file, for a fitted scenario's case record (``[fit] record`` is
+        relative to it); default: the working folder.
 
     Attributes
     ----------
@@ -81,11 +97,27 @@ class PlannerApp:
     """
 
     def __init__(self, scenario: Scenario | None = None, *,
-                 output_folder: str | Path | None = None) -> None:
+                 output_folder: str | Path | None = None,
+                 scenario_folder: str | Path | None = None) -> None:
         self.scenario = scenario if scenario is not None else demo_scenario()
+        self.scenario_folder = Path(scenario_folder) if scenario_folder else None
         self.runner = Runner()
         self.last_update_ms = 0.0
+        self.last_band_ms = 0.0
+        self.band: Band | None = None
+        self._figure_lock = threading.RLock()
+        self._measured_cache: tuple[str, tuple] = ("", ())
         self._muted = False
+        self.band_panel = BandPanel()
+        self.band_warnings = w.HTML()
+        self.band_warnings.add_class("cs-band-warnings")
+        self.band_outcomes = w.HTML()
+        self.band_outcomes.add_class("cs-band-outcomes-box")
+        self.band_note = w.HTML()
+        self.band_note.add_class("cs-band-note")
+        self.worker = BandWorker(
+            lambda *args: on_main_thread(lambda: self._band_done(*args)),
+            lambda *args: on_main_thread(lambda: self._band_failed(*args)))
         self.settings = SettingsPanel()
         self.editor = PlanEditor()
         self.loader = LoadBar(lambda: self.scenario, self.load, self.show_error)
@@ -125,39 +157,79 @@ class PlannerApp:
         self.status.value = "<span class='cs-status'>Prediction ready.</span>"
         self.settings.observe(self._setting_changed)
         self.editor.observe(self._plan_changed)
+        self.band_panel.observe(lambda _: self.request_band())
         self.widget = self._layout()
+        self._first_band()
 
     # ---- layout ------------------------------------------------------------------------
     def _layout(self) -> w.VBox:
-        def card(*children: w.Widget) -> w.VBox:
+        """One screen: the plan and its results on the left, the figure beside them.
+
+        The less used settings (patient and equipment, the band, saving) are tabs beside the
+        plan, so at 1366×768 the plan table, the warnings and the agent and oxygen panels are
+        on screen together.
+        """
+        def card(*children: w.Widget, cls: str = "") -> w.VBox:
             box = w.VBox(list(children), layout=w.Layout(flex="0 0 auto",
-                                                         margin="4px 6px 4px 0"))
+                                                         margin="3px 0 3px 0"))
             box.add_class("cs-card")
+            if cls:
+                box.add_class(cls)
             return box
 
-        section = "<div class='cs-section'>{}</div>"
-        plan_card = card(w.HTML(section.format("Plan")),
-                         w.HBox([self.loader.widget], layout=w.Layout(margin="0 0 4px 0")),
-                         self.editor.widget)
-        settings_card = card(w.HTML(section.format("Patient and equipment")),
-                             self.settings.widget)
-        results = card(self.warnings,
-                       w.HTML(section.format("Outcomes")),
+        plan_tab = w.VBox([w.HBox([self.loader.widget], layout=w.Layout(margin="0 0 4px 0")),
+                           self.editor.widget])
+        tabs = w.Tab(children=[plan_tab, self.settings.widget, self.band_panel.widget,
+                               self.export.widget])
+        for k, title in enumerate(("Plan", "Patient and equipment", "Spread", "Save")):
+            tabs.set_title(k, title)
+        tabs.add_class("cs-main-tabs")
+        self.tabs = tabs
+        warnings = card(self.warnings, self.band_warnings, cls="cs-warnings-card")
+        results = card(w.HTML("<div class='cs-section'>Outcomes</div>"),
                        w.HBox([self.keep_button, self.clear_button],
                               layout=w.Layout(grid_gap="6px", margin="0 0 4px 0")),
-                       self.outcomes)
-        save = card(w.HTML(section.format("Save")), self.export.widget)
-        left = w.VBox([plan_card, settings_card], layout=w.Layout(flex="0 1 960px"))
-        right = w.VBox([results, save], layout=w.Layout(flex="1 1 420px"))
-        top = w.HBox([left, right], layout=w.Layout(flex_flow="row wrap",
-                                                    align_items="flex-start"))
-        app = w.VBox([style_widget(), w.HTML(caution_html()), self.title, top,
-                      self.advisor.widget, self.error, self.status, self.figure, FitWidth()])
+                       self.outcomes, self.band_outcomes)
+        left = w.VBox([tabs, self.error, self.advisor.widget, warnings, results],
+                      layout=w.Layout(flex="0 1 760px", min_width="0"))
+        left.add_class("cs-left")
+        right = w.VBox([w.HBox([self.status, self.band_note],
+                               layout=w.Layout(grid_gap="12px", flex_flow="row wrap")),
+                        self.figure], layout=w.Layout(flex="1 1 480px",
+                                                                   min_width="0"))
+        right.add_class("cs-right")
+        main = w.HBox([left, right], layout=w.Layout(flex_flow="row nowrap",
+                                                     align_items="flex-start",
+                                                     grid_gap="10px"))
+        main.add_class("cs-main")
+        app = w.VBox([style_widget(), w.HTML(caution_html()), self.title, main, FitWidth()])
         app.add_class("cs-app")
         return app
 
     def _repr_mimebundle_(self, **kwargs):
+        # As plotly's own FigureWidget display does: the page's first view of the figure
+        # is its state now, with everything drawn since it was made.
+        with self._figure_lock:
+            self.figure._widget_layout = deepcopy(self.figure._layout_obj._props)
+            self.figure._widget_data = deepcopy(self.figure._data)
         return self.widget._repr_mimebundle_(**kwargs)
+
+    def _first_band(self) -> None:
+        """The first band, before the app is shown (Voilà runs this ahead of the page)."""
+        if not self.band_panel.enabled.value or self.runner.current is None:
+            return
+        from circlesim.population.band import run_band
+
+        start = time.perf_counter()
+        try:
+            settings = self.band_panel.read()
+            control = self.runner.current.result.control
+            band = run_band(self.runner.current.scenario, settings,
+                            plan=None if control is None else control.plan)
+        except InputError as exc:
+            self.band_panel.show_error(str(exc))
+            return
+        self._band_done(band, 1000.0 * (time.perf_counter() - start), self.worker.generation)
 
     # ---- public actions -----------------------------------------------------------------------
     def load(self, scenario: Scenario) -> None:
@@ -182,13 +254,15 @@ class PlannerApp:
         """Keep the current prediction as the reference plan."""
         self.runner.keep_reference()
         self.clear_button.disabled = self.runner.reference is None
-        self._draw()
+        with self._figure_lock:
+            self._draw()
 
     def clear_reference(self) -> None:
         """Drop the reference plan."""
         self.runner.clear_reference()
         self.clear_button.disabled = True
-        self._draw()
+        with self._figure_lock:
+            self._draw()
 
     def show_error(self, message: str, row: int | None = None, key: str | None = None) -> None:
         """Show an inline error; the last prediction stays on screen."""
@@ -198,6 +272,7 @@ class PlannerApp:
         if self.runner.current is not None:
             self.warnings.value = alerts_html(self.runner.current.result.alerts, stale=True,
                                               targets=_targets(self.runner.current.result))
+            self.band_warnings.value = band_warnings_html(self.band, stale=True)
 
     def read_inputs(self) -> Scenario:
         """The scenario the controls describe.
@@ -209,6 +284,93 @@ class PlannerApp:
         """
         plan = self.editor.read()
         return self.settings.apply(replace(self.scenario, plan=plan))
+
+    def request_band(self) -> bool:
+        """Ask the background worker for the band of the current prediction (returns at
+        once). Returns False if the band is off or its settings are bad (an inline error
+        then names the field and the last good band stays)."""
+        current = self.runner.current
+        if not self.band_panel.enabled.value:
+            self.worker.cancel()
+            self.band = None
+            self.band_panel.show_error(None)
+            self.band_panel.status.value = ""
+            with self._figure_lock:
+                if self.figure is not None:
+                    from circlesim.reports.band import set_band
+
+                    set_band(self.figure, None)
+            self.band_warnings.value = self.band_outcomes.value = self.band_note.value = ""
+            return False
+        try:
+            settings = self.band_panel.read()
+        except InputError as exc:
+            self.band_panel.show_error(str(exc))
+            return False
+        self.band_panel.show_error(None)
+        if current is None:
+            return False
+        self.band_panel.settings = settings
+        plan = current.result.control.plan if current.result.control is not None else None
+        self.band_panel.status.value = ("<span class='cs-status cs-busy'>Computing the "
+                                        "spread…</span>")
+        self.worker.submit(current.scenario, settings, plan)
+        return True
+
+    def _band_done(self, band: Band, elapsed_ms: float, generation: int) -> None:
+        """Draw the band if it is still the newest (on the kernel's main thread)."""
+        from circlesim.reports.band import set_band
+
+        measured = self._measured(band)
+        with self._figure_lock:
+            if generation != self.worker.generation or self.figure is None:
+                return
+            set_band(self.figure, band, self.scenario.vaporizer.agent, measured)
+        self.band = band
+        self.last_band_ms = elapsed_ms
+        self.band_warnings.value = band_warnings_html(band)
+        self.band_outcomes.value = band_outcomes_html(band)
+        points = f"; {sum(len(m.values) for m in measured)} measured points" if measured \
+            else ""
+        who = "draws from the fit" if band.basis.startswith("the fit") else "similar patients"
+        self.band_note.value = (f"<span class='cs-status'><b>Shaded:</b> {band.settings.label} "
+                                f"of {band.n} {who} (end-tidal and brain agent, FIO2)</span>")
+        self.band_panel.status.value = (
+            f"<span class='cs-status'>Band over {band.n} {band.basis.replace('the ', '')} "
+            f"({band.settings.label}, shaded) updated in {elapsed_ms:.0f} ms{points}.</span>")
+
+    def _band_failed(self, message: str, generation: int) -> None:
+        if generation != self.worker.generation:
+            return
+        self.band_panel.show_error(message)
+        self.band_panel.status.value = ""
+
+    def _measured(self, band: Band) -> tuple:
+        """Measured points of a fitted scenario's case record (none if it has none)."""
+        fit = self.scenario.fit
+        if fit is None or not fit.record or not band.basis.startswith("the fit"):
+            return ()
+        path = (self.scenario_folder or Path.cwd()) / fit.record
+        if self._measured_cache[0] == str(path):
+            return self._measured_cache[1]
+        from circlesim.cases.record import load_case
+        from circlesim.reports.band import MeasuredPoints
+
+        try:
+            record = load_case(path)
+        except InputError:
+            return ()
+        agent = self.scenario.vaporizer.agent
+        points = []
+        for series, values in record.measured.items():
+            if series.gas == agent:
+                points.append(MeasuredPoints(f"Measured {series.label}", record.time_min,
+                                             values, 1))
+            elif series.gas == "oxygen":
+                points.append(MeasuredPoints(f"Measured {series.label}", record.time_min,
+                                             values / 100.0, 2))
+        self._measured_cache = (str(path), tuple(points))
+        return tuple(points)
 
     def update(self) -> bool:
         """Read the inputs, run the engine and redraw. Returns True if a new prediction ran."""
@@ -222,10 +384,13 @@ class PlannerApp:
             self.show_error(*locate_error(self.runner.error or "", self.editor.columns))
             return False
         self.scenario = scenario
-        self._draw()
+        with self._figure_lock:
+            self._draw()
         self.last_update_ms = 1000.0 * (time.perf_counter() - start)
         self.status.value = (f"<span class='cs-status'>Prediction updated in "
                              f"{self.last_update_ms:.0f} ms (engine and figure data).</span>")
+        if self.figure is not None and hasattr(self, "widget"):
+            self.request_band()
         return True
 
     # ---- internals ----------------------------------------------------------------------------
@@ -237,8 +402,19 @@ class PlannerApp:
         results, labels = self.runner.shown()
         threshold = current.scenario.report.fio2_threshold
         if self.figure is None:
-            self.figure = timeline_figure(results, labels, fio2_threshold=threshold,
-                                          widget=True)
+            import plotly.graph_objects as go
+
+            from circlesim.reports.band import add_band_slots
+
+            # the band's traces are part of the figure from the start: traces added after
+            # the page has the widget would only reach it as messages
+            figure = timeline_figure(results, labels, fio2_threshold=threshold,
+                                     height=FIGURE_HEIGHT_PX)
+            add_band_slots(figure)
+            # beside the plan the figure is narrow: smaller legends leave the curves room
+            figure.update_layout({("legend" if r == 1 else f"legend{r}"): {"font": {"size": 10}}
+                                  for r in range(1, 6)}, margin={"l": 40, "r": 4, "t": 30})
+            self.figure = go.FigureWidget(figure)
             self.figure.add_class("cs-figure")
             self.figure._config = {**self.figure._config, "responsive": True,
                                    "displaylogo": False}
@@ -323,6 +499,8 @@ def planner(scenario: Scenario | str | Path | None = None, *,
     output_folder : path, optional
         Where the Save buttons write (default ``out/``).
     """
+    folder = None
     if isinstance(scenario, str | Path):
+        folder = Path(scenario).parent
         scenario = load_scenario(scenario)
-    return PlannerApp(scenario, output_folder=output_folder)
+    return PlannerApp(scenario, output_folder=output_folder, scenario_folder=folder)

@@ -51,6 +51,20 @@ CSS = """
                      font-size: 13px; margin: 0 0 6px 0; }
 .cs-advise-line { font-size: 13px; margin: 2px 0; }
 .cs-busy { color: #3a6fb0; font-weight: 600; }
+/* one screen: plan and results on the left, the figure beside them */
+.cs-app { max-width: none; }
+.cs-caution { padding: 4px 10px; font-size: 12px; }
+.cs-title { font-size: 17px; margin: 4px 0 0 0; }
+.cs-subtitle { margin: 0 0 2px 0; }
+.cs-main { width: 100%; }
+.cs-left, .cs-right { overflow: hidden; }
+.cs-main-tabs .lm-TabBar-tab, .cs-main-tabs .p-TabBar-tab { font-size: 13px; }
+.cs-main-tabs > .widget-tab-contents, .cs-main-tabs > .lm-TabPanel-stackedPanel {
+    padding: 6px 6px; overflow-x: auto; }
+.cs-warnings-card { max-height: 210px; overflow-y: auto; }
+.cs-alert { padding: 3px 8px; margin: 2px 0; }
+.cs-section { margin: 2px 0 4px 0; }
+.cs-band-panel .widget-hbox { margin: 2px 0; }
 """
 
 

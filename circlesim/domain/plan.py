@@ -220,6 +220,10 @@ class Plan:
         InputError
             If a segment's fresh gas flow is outside 0.1–20 L/min or has less O2 than air.
         """
+        cache_key = (tidal_volume_ml, rate_per_min, valve)
+        cache = self.__dict__.setdefault("_segments_cache", {})
+        if cache_key in cache:
+            return cache[cache_key]
         state = {"o2_l_min": 0.0, "air_l_min": 0.0, "n2o_l_min": 0.0, "dial_percent": 0.0,
                  "tidal_volume_ml": tidal_volume_ml, "rate_per_min": rate_per_min,
                  "valve": valve, "target_end_tidal_percent": None, "target_mac": None,
@@ -255,7 +259,12 @@ class Plan:
                     f"(O2 {segment.o2_l_min:g}, air {segment.air_l_min:g}, "
                     f"N2O {segment.n2o_l_min:g} L/min).")
             out.append(segment)
-        return tuple(out)
+        # a plan is immutable: keep the last resolution (the engine, the alerts and the
+        # outcomes each ask for the same one)
+        if len(cache) > 8:
+            cache.clear()
+        cache[cache_key] = tuple(out)
+        return cache[cache_key]
 
     def with_steps(self, steps: Iterable[Step]) -> Plan:
         """A copy with other steps."""

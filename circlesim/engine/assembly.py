@@ -93,6 +93,8 @@ def check_plan_against(plan: Plan, patient: Patient, circuit: Circuit,
     """
     segments = plan.segments(patient.default_tidal_volume_ml, patient.default_rate_per_min,
                              circuit.valve)
+    max_dial = vaporizer.max_dial
+    dead_space = patient.dead_space
     for i, seg in enumerate(segments):
         step_index = i
         if seg.has_target:
@@ -100,12 +102,12 @@ def check_plan_against(plan: Plan, patient: Patient, circuit: Circuit,
                 f"Plan.steps[{step_index}] holds an end-tidal target: the dial is chosen by the "
                 "target controller, so run the plan with circlesim.simulate (target mode), "
                 "not with the dial-plan engine directly.")
-        if seg.dial_percent > vaporizer.max_dial:
+        if seg.dial_percent > max_dial:
             raise InputError(
                 f"Plan.steps[{step_index}].dial_percent must be a number from 0 to "
-                f"{vaporizer.max_dial:g} vol% (the {vaporizer.agent} vaporizer's range); "
+                f"{max_dial:g} vol% (the {vaporizer.agent} vaporizer's range); "
                 f"got {seg.dial_percent:g}.")
-        if seg.tidal_volume_ml <= patient.dead_space + 1.0:
+        if seg.tidal_volume_ml <= dead_space + 1.0:
             raise InputError(
                 f"Plan.steps[{step_index}].tidal_volume_ml must be larger than the dead space "
                 f"({patient.dead_space:.0f} mL); got {seg.tidal_volume_ml:g}.")
@@ -173,27 +175,29 @@ def assemble(patient: Patient, circuit: Circuit, absorber: Absorber, vaporizer: 
     n_state = m.state_size(lay)
     params = np.repeat(base[None, :], len(segments), axis=0)
     jumps = np.zeros((len(segments), n_state))
-    fresh = slices["fresh"]
-    for i, seg in enumerate(segments):
-        p = params[i]
-        minute_volume = ml_to_l(seg.tidal_volume_ml) * seg.rate_per_min
-        dead_flow = ml_to_l(patient.dead_space) * seg.rate_per_min
-        p[m.P_INSPIRED] = k_body * minute_volume
-        p[m.P_DEAD_SPACE] = k_body * dead_flow
-        carrier = np.zeros(n_gas)
-        carrier[m.O2] = k_circ * (seg.o2_l_min + m.AIR_O2 * seg.air_l_min)
-        carrier[m.N2] = k_circ * m.AIR_N2 * seg.air_l_min
-        carrier[m.N2O] = k_circ * seg.n2o_l_min
-        dial = seg.dial_percent / 100.0
-        if vaporizer.placement == "outside":
-            carrier[agent_index] = carrier.sum() * dial / (1.0 - dial)
-        else:
-            p[m.P_DRAW_OVER_SETTING] = dial
-        p[fresh] = carrier
-        if seg.inject_ml > 0.0:
-            jumps[i, agent_index] = liquid_ml_to_vapour_l_stpd(
-                seg.inject_ml, agent.liquid_density_g_ml, agent.molar_mass_g_mol)
-            jumps[i, m.state_slices(lay)["delivered"].start + agent_index] = jumps[i, agent_index]
+    # every segment at once (one array per setting, segment axis first)
+    o2, air, n2o, dial, tidal, rate, inject = (np.array(
+        [getattr(seg, name) for seg in segments], dtype=float) for name in (
+        "o2_l_min", "air_l_min", "n2o_l_min", "dial_percent", "tidal_volume_ml",
+        "rate_per_min", "inject_ml"))
+    params[:, m.P_INSPIRED] = k_body * (ml_to_l(tidal) * rate)
+    params[:, m.P_DEAD_SPACE] = k_body * (ml_to_l(patient.dead_space) * rate)
+    carrier = np.zeros((len(segments), n_gas))
+    carrier[:, m.O2] = k_circ * (o2 + m.AIR_O2 * air)
+    carrier[:, m.N2] = k_circ * m.AIR_N2 * air
+    carrier[:, m.N2O] = k_circ * n2o
+    fraction = dial / 100.0
+    if vaporizer.placement == "outside":
+        carrier[:, agent_index] = carrier.sum(axis=1) * fraction / (1.0 - fraction)
+    else:
+        params[:, m.P_DRAW_OVER_SETTING] = fraction
+    params[:, slices["fresh"]] = carrier
+    injected = inject > 0.0
+    if injected.any():
+        vapour = liquid_ml_to_vapour_l_stpd(inject[injected], agent.liquid_density_g_ml,
+                                            agent.molar_mass_g_mol)
+        jumps[injected, agent_index] = vapour
+        jumps[injected, m.state_slices(lay)["delivered"].start + agent_index] = vapour
     seg_times = np.array([s.start_min for s in segments] + [segments[-1].end_min])
 
     y0 = initial_state(lay, params[0], patient, circuit, absorber, k_circ)

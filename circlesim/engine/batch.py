@@ -53,19 +53,28 @@ discard_stale_cache(__file__, [m.__file__])
 H_MAX_MIN = 5.0
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True, error_model="numpy")
+def _auxiliary_member(states, params, seg_index, lay, out):
+    """The model's auxiliary outputs of one member, written into ``out`` (no temporaries)."""
+    dy = np.empty(states.shape[1])
+    work = np.empty(m.work_size(lay))
+    for i in range(states.shape[0]):
+        m.evaluate(states[i], params[seg_index[i]], lay, dy, out[i], work)
+
+
+@njit(cache=True, parallel=True, error_model="numpy", nogil=True)
 def _auxiliary_parallel(states, params, seg_index, lay):
     out = np.empty((states.shape[0], states.shape[1], lay[11]))
     for b in prange(states.shape[0]):
-        out[b] = m.auxiliary_series(states[b], params[b], seg_index[b], lay)
+        _auxiliary_member(states[b], params[b], seg_index[b], lay, out[b])
     return out
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy", nogil=True)
 def _auxiliary_serial(states, params, seg_index, lay):
     out = np.empty((states.shape[0], states.shape[1], lay[11]))
     for b in range(states.shape[0]):
-        out[b] = m.auxiliary_series(states[b], params[b], seg_index[b], lay)
+        _auxiliary_member(states[b], params[b], seg_index[b], lay, out[b])
     return out
 
 

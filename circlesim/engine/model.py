@@ -155,7 +155,7 @@ def aux_size(lay: np.ndarray) -> int:
     return int(lay[11])
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def work_size(lay: np.ndarray) -> int:
     """Length of the scratch array :func:`evaluate` needs."""
     return 6 * lay[0] + 2 * lay[1]
@@ -206,7 +206,7 @@ def parameter_slices(lay: np.ndarray) -> dict[str, slice]:
 
 
 # ---- the right-hand side ---------------------------------------------------------------
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def smoothstep(x: float) -> float:
     """0 for x ≤ 0, 1 for x ≥ 1, and 3x² − 2x³ between (continuous slope)."""
     if x <= 0.0:
@@ -216,7 +216,7 @@ def smoothstep(x: float) -> float:
     return x * x * (3.0 - 2.0 * x)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def absorbent_efficiency(used_fraction: float, knee: float) -> float:
     """Fraction of the CO2 reaching the absorbent that it takes up.
 
@@ -229,7 +229,7 @@ def absorbent_efficiency(used_fraction: float, knee: float) -> float:
     return 1.0 - smoothstep((used_fraction - knee) / (1.0 - knee))
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def evaluate(y, p, lay, dy, aux, work):
     """Time derivative ``dy`` of the state ``y`` and the auxiliary outputs ``aux``.
 
@@ -454,7 +454,7 @@ def evaluate(y, p, lay, dy, aux, work):
     aux[a_scal + AUX_EXHALED_TO_ABSORBER] = (1.0 - vented_exhaled) * limb_total
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def auxiliary_series(states, params, seg_index, lay):
     """Auxiliary outputs at many saved states.
 

@@ -61,7 +61,7 @@ FAC_MIN = 0.2
 FAC_MAX = 10.0
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _error_norm(err, y0, y1, atol, rtol):
     total = 0.0
     n = err.size
@@ -71,7 +71,7 @@ def _error_norm(err, y0, y1, atol, rtol):
     return np.sqrt(total / n)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _initial_step(y, f0, p, lay, atol, rtol, h_max, aux, work, f1, scratch):
     n = y.size
     d0 = 0.0
@@ -99,7 +99,7 @@ def _initial_step(y, f0, p, lay, atol, rtol, h_max, aux, work, f1, scratch):
     return min(100.0 * h0, h1, h_max)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def integrate(y0, params, seg_times, jumps, lay, t_out, atol, rtol, h_max, max_steps):
     """Integrate a piecewise-constant plan and return the state at the output times.
 
@@ -253,7 +253,7 @@ def integrate(y0, params, seg_times, jumps, lay, t_out, atol, rtol, h_max, max_s
     return states, y, stats
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True, parallel=True, error_model="numpy", nogil=True)
 def integrate_batch(y0, params, seg_times, jumps, lay, t_out, atol, rtol, h_max, max_steps):
     """:func:`integrate` for many members at once, in parallel over the leading axis.
 
@@ -286,7 +286,7 @@ def integrate_batch(y0, params, seg_times, jumps, lay, t_out, atol, rtol, h_max,
     return states, final, stats
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy", nogil=True)
 def integrate_batch_serial(y0, params, seg_times, jumps, lay, t_out, atol, rtol, h_max,
                            max_steps):
     """:func:`integrate_batch` on the calling thread only, one member after another.

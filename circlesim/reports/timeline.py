@@ -264,17 +264,20 @@ def refresh_timeline(fig: go.Figure, results: Sequence[Result],
     labels = list(labels) if labels is not None else [""] * len(results)
     lines = [line for k, (result, label) in enumerate(zip(results, labels, strict=True))
              for line in _lines(result, label, _DASHES[k % len(_DASHES)])]
-    same = len(lines) == len(fig.data) and all(
-        old.name == new.name for old, new in zip(fig.data, lines, strict=True))
+    # traces with meta "band" (circlesim.reports.band) stay as they are, in front
+    kept = tuple(t for t in fig.data if t.meta == "band")
+    main = [t for t in fig.data if t.meta != "band"]
+    same = len(lines) == len(main) and all(
+        old.name == new.name for old, new in zip(main, lines, strict=True))
     if same:
         with fig.batch_update():
-            for old, new in zip(fig.data, lines, strict=True):
+            for old, new in zip(main, lines, strict=True):
                 if len(old.x) != len(new.x) or not np.array_equal(old.x, new.x):
                     old.x = new.x
                 old.y = new.y
             set_reference_lines(fig, results[0].mac_percent, fio2_threshold)
         return
-    fig.data = ()
+    fig.data = kept
     fig.add_traces([line.trace() for line in lines], rows=[line.row for line in lines],
                    cols=[1] * len(lines))
     with fig.batch_update():
