@@ -9,7 +9,8 @@ import numpy as np
 import pytest
 
 import circlesim as cs
-from circlesim.engine.batch import BatchResult, simulate_batch
+from circlesim.engine.batch import simulate_batch
+from circlesim.engine.batch_result import BatchResult
 
 RTOL = 1e-4
 FLOOR = 1e-12

@@ -18,6 +18,7 @@ import threading
 import time
 from collections.abc import Callable
 from dataclasses import fields
+from pathlib import Path
 
 import ipywidgets as w
 
@@ -25,7 +26,7 @@ from circlesim.base.validation import InputError
 from circlesim.population.band import Band, BandSettings, run_band
 from circlesim.scenario import Scenario
 
-__all__ = ["BandPanel", "BandWorker", "band_outcomes_html", "band_warnings_html",
+__all__ = ["BandPanel", "BandWorker", "band_outcomes_html", "band_warnings_html", "measured_points",
            "on_main_thread"]
 
 
@@ -223,3 +224,23 @@ def band_warnings_html(band: Band | None, stale: bool = False) -> str:
     tail = " <span class='cs-unit'>(last band that ran)</span>" if stale else ""
     return "".join(f"<div class='cs-alert cs-warning cs-band-alert'><span class='cs-badge'>"
                    f"Spread</span> {html.escape(s)}{tail}</div>" for s in band.warnings())
+
+
+def measured_points(record_path: Path, agent: str) -> tuple:
+    """The agent and O2 values of the case record at ``record_path`` as figure points (none
+    when the record cannot be read: the band is still drawn)."""
+    from circlesim.cases.record import load_case
+    from circlesim.reports.band import MeasuredPoints
+
+    try:
+        record = load_case(record_path)
+    except InputError:
+        return ()
+    points = []
+    for series, values in record.measured.items():
+        if series.gas == agent:
+            points.append(MeasuredPoints(f"Measured {series.label}", record.time_min, values, 1))
+        elif series.gas == "oxygen":
+            points.append(MeasuredPoints(f"Measured {series.label}", record.time_min,
+                                         values / 100.0, 2))
+    return tuple(points)

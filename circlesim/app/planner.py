@@ -34,6 +34,7 @@ from circlesim.app.band_panel import (
     BandWorker,
     band_outcomes_html,
     band_warnings_html,
+    measured_points,
     on_main_thread,
 )
 from circlesim.app.comparison import outcome_table, table_html
@@ -351,26 +352,10 @@ class PlannerApp:
         if fit is None or not fit.record or not band.basis.startswith("the fit"):
             return ()
         path = (self.scenario_folder or Path.cwd()) / fit.record
-        if self._measured_cache[0] == str(path):
-            return self._measured_cache[1]
-        from circlesim.cases.record import load_case
-        from circlesim.reports.band import MeasuredPoints
-
-        try:
-            record = load_case(path)
-        except InputError:
-            return ()
-        agent = self.scenario.vaporizer.agent
-        points = []
-        for series, values in record.measured.items():
-            if series.gas == agent:
-                points.append(MeasuredPoints(f"Measured {series.label}", record.time_min,
-                                             values, 1))
-            elif series.gas == "oxygen":
-                points.append(MeasuredPoints(f"Measured {series.label}", record.time_min,
-                                             values / 100.0, 2))
-        self._measured_cache = (str(path), tuple(points))
-        return tuple(points)
+        if self._measured_cache[0] != str(path):
+            self._measured_cache = (str(path),
+                                    measured_points(path, self.scenario.vaporizer.agent))
+        return self._measured_cache[1]
 
     def update(self) -> bool:
         """Read the inputs, run the engine and redraw. Returns True if a new prediction ran."""

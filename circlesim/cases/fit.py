@@ -30,7 +30,8 @@ from circlesim.cases.columns import MeasuredSeries
 from circlesim.cases.priors import PARAMETERS, Prior, noise_sd, prior_for
 from circlesim.cases.record import CaseRecord
 from circlesim.domain.physiology import FitUncertainty
-from circlesim.engine.batch import BatchResult, simulate_batch
+from circlesim.engine.batch import simulate_batch
+from circlesim.engine.batch_result import BatchResult
 from circlesim.scenario import Scenario
 
 __all__ = ["CaseFit", "Estimate", "FitError", "batch_predictions", "data_points", "fit_case",

@@ -29,6 +29,20 @@ def add_report_options(parser, report_default: str, csv_help: str) -> None:
                         help="replace existing output files")
 
 
+def add_parallel_options(p) -> None:
+    """The ``--scheduler``, ``--fallback-local`` and ``--workers`` options of commands that run
+    many independent pieces of work (:func:`circlesim.base.distributed.map_chunks`)."""
+    p.add_argument("--scheduler", default=None,
+                   help="address of a Dask scheduler (e.g. tcp://10.0.0.5:8786) to run on "
+                        "instead of local processes")
+    p.add_argument("--fallback-local", action="store_true",
+                   help="if the scheduler cannot be reached, run on local processes instead "
+                        "of stopping")
+    p.add_argument("--workers", type=int, default=None,
+                   help="local worker processes (default one per core; 1 runs in this "
+                        "process)")
+
+
 def output_path(path: Path | None, default: Path, overwrite: bool) -> Path:
     """Where to write an output file: ``path`` (or ``default`` when None); unless
     ``overwrite``, the first free name next to it, so an existing file is never replaced."""

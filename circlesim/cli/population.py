@@ -13,7 +13,12 @@ import warnings
 from pathlib import Path
 
 from circlesim.base.validation import InputError
-from circlesim.cli.common import add_report_options, caution_banner, output_path
+from circlesim.cli.common import (
+    add_parallel_options,
+    add_report_options,
+    caution_banner,
+    output_path,
+)
 from circlesim.outcomes.comparison import find_scenario_files
 from circlesim.outcomes.emissions import DEFAULT_GWP_HORIZON
 from circlesim.population.result import probability_table, save_outcomes
@@ -43,15 +48,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--population", type=Path, default=None,
                    help="TOML file with the population's distributions (default: adults, see "
                         "docs/population.md)")
-    p.add_argument("--scheduler", default=None,
-                   help="address of a Dask scheduler (e.g. tcp://10.0.0.5:8786) to run on "
-                        "instead of local processes")
-    p.add_argument("--fallback-local", action="store_true",
-                   help="if the scheduler cannot be reached, run on local processes instead "
-                        "of stopping")
-    p.add_argument("--workers", type=int, default=None,
-                   help="local worker processes (default one per core; 1 runs in this "
-                        "process)")
+    add_parallel_options(p)
     add_report_options(p, "out/population.html",
                        "also write every patient's characteristics and outcomes as CSV")
     p.add_argument("--interval", type=float, default=0.5, help="output interval, min "

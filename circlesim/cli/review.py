@@ -17,7 +17,12 @@ from pathlib import Path
 import pandas as pd
 
 from circlesim.base.validation import InputError
-from circlesim.cli.common import add_report_options, caution_banner, output_path
+from circlesim.cli.common import (
+    add_parallel_options,
+    add_report_options,
+    caution_banner,
+    output_path,
+)
 from circlesim.department.review import review_folder
 from circlesim.department.rule import load_rule
 from circlesim.department.usage import load_prices
@@ -44,15 +49,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--every", type=float, default=5.0,
                    help="minutes between the end-tidal targets that hold the course "
                         "(default 5)")
-    p.add_argument("--scheduler", default=None,
-                   help="address of a Dask scheduler (e.g. tcp://10.0.0.5:8786) to run on "
-                        "instead of local processes")
-    p.add_argument("--fallback-local", action="store_true",
-                   help="if the scheduler cannot be reached, run on local processes instead "
-                        "of stopping")
-    p.add_argument("--workers", type=int, default=None,
-                   help="local worker processes (default one per core; 1 runs in this "
-                        "process)")
+    add_parallel_options(p)
     add_report_options(p, "out/department-review.html",
                        "also write the per-case table as CSV to this path (and the totals "
                        "to STEM-totals.csv beside it)")

@@ -73,7 +73,7 @@ def savings_figure(review: DepartmentReview) -> go.Figure:
                   if r.held.agent_ml > 0]
         fig.add_trace(go.Histogram(x=shares, name=agent, marker={"color": colour},
                                    opacity=0.7, showlegend=False, nbinsx=15), row=1, col=2)
-    fig.update_layout(barmode="overlay", height=420, margin={"t": 50, "b": 40},
+    fig.update_layout(barmode="group", height=420, margin={"t": 50, "b": 40},
                       legend={"title": "agent (x: at risk under the rule)"})
     fig.update_xaxes(title_text="cases, by saving", row=1, col=1)
     fig.update_yaxes(title_text="mL", row=1, col=1)
