@@ -159,12 +159,14 @@ def bench_population(n: int, check: int) -> list[tuple]:
     t_sample, c_sample, people = timed(lambda: sample_patients(n, seed=7))
     # warm-up (compilation is cached on disk, loading it is not timed)
     run_population(scenario, people.patients[:4], workers=1, output_interval_min=1.0)
+    # the default chunk size (250 patients): a chunk's arrays stay small enough for the memory
+    # allocator to reuse them (larger chunks cost fresh pages of memory every time)
     t_here, c_here, here = timed(lambda: run_population(
-        scenario, people, workers=1, output_interval_min=1.0, chunk_size=1000))
+        scenario, people, workers=1, output_interval_min=1.0))
     workers = local_workers()
     t_spread, c_spread, spread = timed(lambda: run_population(
         scenario, people, output_interval_min=1.0, workers=workers,
-        chunk_size=max(1, min(1000, -(-n // (4 * workers))))))
+        chunk_size=max(1, min(250, -(-n // (4 * workers))))))
     same = all(np.array_equal(here.curves[k], spread.curves[k]) for k in here.curves)
     # per-patient references and accuracy on a sample of the patients
     sample = people.patients[:: max(1, n // check)][:check]

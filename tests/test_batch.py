@@ -135,3 +135,33 @@ def test_member_index_out_of_range():
     batch = simulate_batch(MIXED[:2], cs.Circuit(), PLANS[1], output_interval_min=5.0)
     with pytest.raises(IndexError, match="from 0 to 1"):
         batch.member(2)
+
+
+def test_group_assembly_gives_each_patients_own_inputs_exactly():
+    # Patients sharing a plan are assembled together (vectorised); each member's arrays must
+    # be exactly those of the one-patient assembly, including a step that sets its own
+    # ventilation next to steps that take each patient's default.
+    from circlesim.engine.assembly import assemble, assemble_group
+
+    plan = cs.Plan([cs.Step(0, o2_l_min=2.0, air_l_min=4.0, dial_percent=5.0),
+                    cs.Step(10, o2_l_min=0.5, tidal_volume_ml=450.0, rate_per_min=14.0),
+                    cs.Step(30, dial_percent=2.0, inject_ml=1.0)], duration_min=60.0)
+    circuit, absorber, vaporizer = cs.Circuit(), cs.Absorber(), cs.Vaporizer("desflurane")
+    adults = MIXED[1:3]  # 450 mL breaths: larger than these adults' dead spaces
+    group = assemble_group(adults, circuit, absorber, vaporizer, plan)
+    for b, patient in enumerate(adults):
+        one = assemble(patient, circuit, absorber, vaporizer, plan)
+        member = group.member(b)
+        for name in ("params", "seg_times", "jumps", "y0", "atol"):
+            np.testing.assert_array_equal(getattr(member, name), getattr(one, name), name)
+        assert member.segments == one.segments
+
+
+def test_a_group_names_the_member_whose_breath_is_too_small():
+    from circlesim.engine.assembly import assemble_group
+
+    plan = cs.Plan([cs.Step(0, o2_l_min=2.0, dial_percent=2.0),
+                    cs.Step(5, tidal_volume_ml=200.0)], duration_min=20.0)
+    with pytest.raises(cs.InputError, match=r"batch member 3: Plan.steps\[1\].tidal_volume_ml "
+                                            r"must be larger than the dead space"):
+        assemble_group(MIXED, cs.Circuit(), cs.Absorber(), cs.Vaporizer(), plan)

@@ -6,6 +6,8 @@ conversions come from :mod:`circlesim.base.units`.
 
 from __future__ import annotations
 
+import math
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -18,7 +20,8 @@ from circlesim.domain.plan import Plan, Segment
 from circlesim.engine import model as m
 from circlesim.properties import NITROGEN, NITROUS_OXIDE, SolubleGas
 
-__all__ = ["GAS_LABELS", "ModelInputs", "assemble"]
+__all__ = ["GAS_LABELS", "GroupInputs", "MemberInputs", "ModelInputs", "assemble", "assemble_group",
+           "assemble_members"]
 
 #: Alveolar O2 fraction below which O2 uptake is curtailed (the patient could not survive it;
 #: it only keeps the arithmetic defined, and a warning is raised long before).
@@ -81,6 +84,11 @@ def _tissue_partition(gas: SolubleGas, partition: str) -> float:
         partition]
 
 
+#: Ventilation handed to :meth:`Plan.segments` to mark the segments that take the patient's
+#: own default (one NaN object, so that the plan's segment cache finds it again).
+_PATIENT_DEFAULT = math.nan
+
+
 def check_plan_against(plan: Plan, patient: Patient, circuit: Circuit,
                        vaporizer: Vaporizer) -> tuple[Segment, ...]:
     """Resolve a plan's segments for this patient and vaporizer, checking what depends on both.
@@ -88,15 +96,21 @@ def check_plan_against(plan: Plan, patient: Patient, circuit: Circuit,
     Raises
     ------
     InputError
-        If a dial is above the vaporizer's range or a tidal volume does not exceed the dead
-        space.
+        If a step holds an end-tidal target, a dial is above the vaporizer's range or a tidal
+        volume does not exceed the dead space.
     """
+    _check_dials(plan.segments(_PATIENT_DEFAULT, _PATIENT_DEFAULT, circuit.valve), vaporizer)
     segments = plan.segments(patient.default_tidal_volume_ml, patient.default_rate_per_min,
                              circuit.valve)
+    tidal = np.array([seg.tidal_volume_ml for seg in segments])
+    _check_tidal_volumes(tidal[None, :], np.array([patient.dead_space]))
+    return segments
+
+
+def _check_dials(segments: Sequence[Segment], vaporizer: Vaporizer) -> None:
+    """Refuse target steps (the engine runs dial plans) and dials above the vaporizer's range."""
     max_dial = vaporizer.max_dial
-    dead_space = patient.dead_space
-    for i, seg in enumerate(segments):
-        step_index = i
+    for step_index, seg in enumerate(segments):  # one segment per step
         if seg.has_target:
             raise InputError(
                 f"Plan.steps[{step_index}] holds an end-tidal target: the dial is chosen by the "
@@ -107,24 +121,129 @@ def check_plan_against(plan: Plan, patient: Patient, circuit: Circuit,
                 f"Plan.steps[{step_index}].dial_percent must be a number from 0 to "
                 f"{max_dial:g} vol% (the {vaporizer.agent} vaporizer's range); "
                 f"got {seg.dial_percent:g}.")
-        if seg.tidal_volume_ml <= dead_space + 1.0:
-            raise InputError(
-                f"Plan.steps[{step_index}].tidal_volume_ml must be larger than the dead space "
-                f"({patient.dead_space:.0f} mL); got {seg.tidal_volume_ml:g}.")
-    return segments
+
+
+def _check_tidal_volumes(tidal_ml: np.ndarray, dead_space_ml: np.ndarray,
+                         members: bool = False) -> None:
+    """Refuse tidal volumes (mL, shape (B, n_segments)) not above each member's dead space."""
+    bad = np.argwhere(tidal_ml <= dead_space_ml[:, None] + 1.0)
+    if bad.size:
+        b, step_index = (int(v) for v in bad[0])
+        who = f"batch member {b}: " if members else ""
+        raise InputError(
+            f"{who}Plan.steps[{step_index}].tidal_volume_ml must be larger than the dead space "
+            f"({dead_space_ml[b]:.0f} mL); got {tidal_ml[b, step_index]:g}.")
+
+
+@dataclass(frozen=True)
+class GroupInputs:
+    """The model inputs of patients who share one breathing system, absorber, vaporizer and plan.
+
+    Built by :func:`assemble_group`; the arrays of every member at once (batch axis first), so a
+    population needs no Python loop over patients beyond reading each patient's physiology.
+
+    Attributes
+    ----------
+    gases, tissue_names, tissue_labels, lay, seg_times, jumps, atol, k_circuit, k_body,
+    agent_index, circuit_min_stpd, circuit_max_stpd
+        As :class:`ModelInputs` (shared by every member).
+    params : ndarray, shape (B, n_segments, n_params)
+    y0 : ndarray, shape (B, n_state)
+    patients : tuple of Patient, length B
+    circuit, plan
+        The shared breathing system and plan.
+    """
+
+    gases: tuple[str, ...]
+    tissue_names: tuple[str, ...]
+    tissue_labels: tuple[str, ...]
+    lay: np.ndarray
+    params: np.ndarray
+    seg_times: np.ndarray
+    jumps: np.ndarray
+    y0: np.ndarray
+    atol: np.ndarray
+    k_circuit: float
+    k_body: float
+    agent_index: int
+    circuit_min_stpd: float
+    circuit_max_stpd: float
+    patients: tuple[Patient, ...]
+    circuit: Circuit
+    plan: Plan
+
+    def __len__(self) -> int:
+        return len(self.patients)
+
+    def member(self, b: int) -> ModelInputs:
+        """Member ``b``'s inputs as :class:`ModelInputs` (with its resolved segments)."""
+        p = self.patients[b]
+        segments = self.plan.segments(p.default_tidal_volume_ml, p.default_rate_per_min,
+                                      self.circuit.valve)
+        return ModelInputs(gases=self.gases, tissue_names=self.tissue_names,
+                           tissue_labels=self.tissue_labels, lay=self.lay,
+                           params=self.params[b], seg_times=self.seg_times, jumps=self.jumps,
+                           y0=self.y0[b], atol=self.atol, k_circuit=self.k_circuit,
+                           k_body=self.k_body, segments=segments, agent_index=self.agent_index,
+                           circuit_min_stpd=self.circuit_min_stpd,
+                           circuit_max_stpd=self.circuit_max_stpd)
 
 
 def assemble(patient: Patient, circuit: Circuit, absorber: Absorber, vaporizer: Vaporizer,
              plan: Plan) -> ModelInputs:
     """Build the model inputs for one patient, breathing system and plan."""
-    segments = check_plan_against(plan, patient, circuit, vaporizer)
+    return assemble_group((patient,), circuit, absorber, vaporizer, plan).member(0)
+
+
+def _tissue_arrays(patients: Sequence[Patient]) -> tuple[tuple, np.ndarray, np.ndarray]:
+    """Each patient's tissue groups: (groups of the first, volumes L (B, C), blood flows L/min
+    (B, C)).
+
+    Raises
+    ------
+    InputError
+        If the patients' tissue groups differ (``Patient.intertissue_diffusion``).
+    """
+    groups = [p.tissues() for p in patients]
+    names = tuple(t.name for t in groups[0])
+    for b, g in enumerate(groups):
+        if tuple(t.name for t in g) != names:
+            raise InputError(f"batch member {b}: every member of a batch must have the same "
+                             "tissue layout; this one differs from member 0 "
+                             "(Patient.intertissue_diffusion).")
+    volume = np.array([[t.volume_l for t in g] for g in groups])
+    flow = np.array([[t.blood_flow_l_min for t in g] for g in groups])
+    return groups[0], volume, flow
+
+
+def assemble_group(patients: Sequence[Patient], circuit: Circuit, absorber: Absorber,
+                   vaporizer: Vaporizer, plan: Plan) -> GroupInputs:
+    """Build the model inputs of many patients sharing the breathing system and the plan.
+
+    Parameters
+    ----------
+    patients : sequence of Patient
+        At least one; all with the same tissue layout (``Patient.intertissue_diffusion``).
+    circuit, absorber, vaporizer, plan
+        Shared by every patient.
+
+    Raises
+    ------
+    InputError
+        As :func:`assemble`, naming the batch member when there are several; or if the
+        patients' tissue layouts differ.
+    """
+    patients = tuple(patients)
+    several = len(patients) > 1
+    template = plan.segments(_PATIENT_DEFAULT, _PATIENT_DEFAULT, circuit.valve)
+    _check_dials(template, vaporizer)
     soluble = _soluble_gases(vaporizer)
     gases = ("oxygen", "carbon_dioxide", *(g.name for g in soluble))
     n_gas = len(gases)
     agent_index = n_gas - 1
-    tissues = patient.tissues()
+    tissues, volume, flow = _tissue_arrays(patients)
     tissue_index = {t.name: i for i, t in enumerate(tissues)}
-    links = patient.intertissue_links()
+    links = patients[0].intertissue_links()
     lay = m.layout(n_gas, len(tissues), [tissue_index[a] for a, _, _ in links],
                    [tissue_index[b] for _, b, _ in links])
     slices = m.parameter_slices(lay)
@@ -132,57 +251,65 @@ def assemble(patient: Patient, circuit: Circuit, absorber: Absorber, vaporizer: 
     k_circ = atpd_to_stpd(circuit.gas_temperature_c, circuit.ambient_pressure_kpa)
     k_body = btps_to_stpd(circuit.ambient_pressure_kpa)
 
-    lam = np.array([g.blood_gas_for(patient.blood_gas_source) * patient.solubility_scale
-                    for g in soluble])
-    capacity = np.empty((len(tissues), len(soluble)))
-    for c, tissue in enumerate(tissues):
-        for s, gas in enumerate(soluble):
-            capacity[c, s] = (k_body * tissue.volume_l * _tissue_partition(gas, tissue.partition)
-                              * lam[s])
-    conductance = np.empty((len(links), len(soluble)))
-    for k, (_, to, tau) in enumerate(links):
-        conductance[k] = capacity[tissue_index[to]] / tau
+    # ---- each patient's physiology (one row per patient) ----------------------------------
+    def column(name: str) -> np.ndarray:
+        return np.fromiter((getattr(p, name) for p in patients), dtype=float,
+                           count=len(patients))
+
+    dead_space, tidal_default, rate_default = (column(k) for k in (
+        "dead_space", "default_tidal_volume_ml", "default_rate_per_min"))
+    lam = np.array([[g.blood_gas_for(p.blood_gas_source) * p.solubility_scale for g in soluble]
+                    for p in patients])                                   # (B, S)
+    partition = np.array([[_tissue_partition(g, t.partition) for g in soluble]
+                          for t in tissues])                              # (C, S)
+    capacity = k_body * volume[:, :, None] * partition[None] * lam[:, None, :]  # (B, C, S)
+    conductance = np.stack([capacity[:, tissue_index[to]] / tau for _, to, tau in links],
+                           axis=1) if links else np.empty((len(patients), 0, len(soluble)))
 
     agent = vaporizer.properties
     saturation = agent.vapour_pressure_kpa(circuit.gas_temperature_c) / circuit.ambient_pressure_kpa
-    base = np.zeros(n_params)
-    base[m.P_VO2] = ml_to_l(patient.vo2)
-    base[m.P_VCO2] = ml_to_l(patient.vco2)
-    base[m.P_CARDIAC_OUTPUT] = patient.cardiac_output
-    base[m.P_SHUNT] = patient.shunt_fraction
-    base[m.P_K_BODY] = k_body
-    base[m.P_LUNG_VOLUME] = patient.frc
-    base[m.P_LEAK] = k_circ * ml_to_l(circuit.leak_ml_min)
-    base[m.P_SAMPLE_LOST] = 0.0 if circuit.sample_returned else (
+    base = np.zeros((len(patients), n_params))
+    base[:, m.P_VO2] = ml_to_l(column("vo2"))
+    base[:, m.P_VCO2] = ml_to_l(column("vco2"))
+    base[:, m.P_CARDIAC_OUTPUT] = column("cardiac_output")
+    base[:, m.P_SHUNT] = column("shunt_fraction")
+    base[:, m.P_K_BODY] = k_body
+    base[:, m.P_LUNG_VOLUME] = column("frc")
+    base[:, m.P_LEAK] = k_circ * ml_to_l(circuit.leak_ml_min)
+    base[:, m.P_SAMPLE_LOST] = 0.0 if circuit.sample_returned else (
         k_circ * ml_to_l(circuit.sample_ml_min))
-    base[m.P_SAMPLE_INSPIRED] = circuit.inspiratory_fraction
-    base[m.P_DRAW_OVER_GAS] = agent_index if vaporizer.placement == "inside" else -1
-    base[m.P_DRAW_OVER_SATURATION] = min(saturation, 1.0)
+    base[:, m.P_SAMPLE_INSPIRED] = circuit.inspiratory_fraction
+    base[:, m.P_DRAW_OVER_GAS] = agent_index if vaporizer.placement == "inside" else -1
+    base[:, m.P_DRAW_OVER_SATURATION] = min(saturation, 1.0)
     n_min = k_circ * circuit.volume_l
     n_max = k_circ * circuit.total_volume_l
-    base[m.P_CIRCUIT_MIN] = n_min
-    base[m.P_CIRCUIT_MAX] = n_max
-    base[m.P_RELAXATION] = RELAXATION_PER_MIN
-    base[m.P_ABSORBENT_CAPACITY] = absorber.capacity_l
-    base[m.P_ABSORBENT_KNEE] = absorber.breakthrough_start
-    base[m.P_O2_FLOOR] = O2_FLOOR
-    base[m.P_VENT_EXHALED] = circuit.vent_exhaled_share
-    base[slices["blood_gas"]] = lam
-    base[slices["tissue_flow"]] = [t.blood_flow_l_min for t in tissues]
-    base[slices["tissue_capacity"]] = capacity.ravel()
-    base[slices["link_conductance"]] = conductance.ravel()
+    base[:, m.P_CIRCUIT_MIN] = n_min
+    base[:, m.P_CIRCUIT_MAX] = n_max
+    base[:, m.P_RELAXATION] = RELAXATION_PER_MIN
+    base[:, m.P_ABSORBENT_CAPACITY] = absorber.capacity_l
+    base[:, m.P_ABSORBENT_KNEE] = absorber.breakthrough_start
+    base[:, m.P_O2_FLOOR] = O2_FLOOR
+    base[:, m.P_VENT_EXHALED] = circuit.vent_exhaled_share
+    base[:, slices["blood_gas"]] = lam
+    base[:, slices["tissue_flow"]] = flow
+    base[:, slices["tissue_capacity"]] = capacity.reshape(len(patients), -1)
+    base[:, slices["link_conductance"]] = conductance.reshape(len(patients), -1)
 
+    # ---- the plan's segments (one column per setting, segment axis first) -----------------
+    n_seg = len(template)
     n_state = m.state_size(lay)
-    params = np.repeat(base[None, :], len(segments), axis=0)
-    jumps = np.zeros((len(segments), n_state))
-    # every segment at once (one array per setting, segment axis first)
-    o2, air, n2o, dial, tidal, rate, inject = (np.array(
-        [getattr(seg, name) for seg in segments], dtype=float) for name in (
-        "o2_l_min", "air_l_min", "n2o_l_min", "dial_percent", "tidal_volume_ml",
-        "rate_per_min", "inject_ml"))
-    params[:, m.P_INSPIRED] = k_body * (ml_to_l(tidal) * rate)
-    params[:, m.P_DEAD_SPACE] = k_body * (ml_to_l(patient.dead_space) * rate)
-    carrier = np.zeros((len(segments), n_gas))
+    o2, air, n2o, dial, inject, tidal, rate = (np.array(
+        [getattr(seg, name) for seg in template], dtype=float) for name in (
+        "o2_l_min", "air_l_min", "n2o_l_min", "dial_percent", "inject_ml", "tidal_volume_ml",
+        "rate_per_min"))
+    # NaN: the segment takes each patient's default ventilation
+    tidal = np.where(np.isnan(tidal), tidal_default[:, None], tidal[None, :])   # (B, n_seg)
+    rate = np.where(np.isnan(rate), rate_default[:, None], rate[None, :])
+    _check_tidal_volumes(tidal, dead_space, several)
+    params = np.repeat(base[:, None, :], n_seg, axis=1)
+    params[:, :, m.P_INSPIRED] = k_body * (ml_to_l(tidal) * rate)
+    params[:, :, m.P_DEAD_SPACE] = k_body * (ml_to_l(dead_space)[:, None] * rate)
+    carrier = np.zeros((n_seg, n_gas))
     carrier[:, m.O2] = k_circ * (o2 + m.AIR_O2 * air)
     carrier[:, m.N2] = k_circ * m.AIR_N2 * air
     carrier[:, m.N2O] = k_circ * n2o
@@ -190,17 +317,18 @@ def assemble(patient: Patient, circuit: Circuit, absorber: Absorber, vaporizer: 
     if vaporizer.placement == "outside":
         carrier[:, agent_index] = carrier.sum(axis=1) * fraction / (1.0 - fraction)
     else:
-        params[:, m.P_DRAW_OVER_SETTING] = fraction
-    params[:, slices["fresh"]] = carrier
+        params[:, :, m.P_DRAW_OVER_SETTING] = fraction
+    params[:, :, slices["fresh"]] = carrier
+    jumps = np.zeros((n_seg, n_state))
     injected = inject > 0.0
     if injected.any():
         vapour = liquid_ml_to_vapour_l_stpd(inject[injected], agent.liquid_density_g_ml,
                                             agent.molar_mass_g_mol)
         jumps[injected, agent_index] = vapour
         jumps[injected, m.state_slices(lay)["delivered"].start + agent_index] = vapour
-    seg_times = np.array([s.start_min for s in segments] + [segments[-1].end_min])
+    seg_times = np.array([s.start_min for s in template] + [template[-1].end_min])
 
-    y0 = initial_state(lay, params[0], patient, circuit, absorber, k_circ)
+    y0 = initial_states(lay, params[:, 0], circuit, absorber, k_circ, several)
     atol = np.empty(n_state)
     sl = m.state_slices(lay)
     atol[sl["circuit"]] = 1e-12
@@ -208,16 +336,18 @@ def assemble(patient: Patient, circuit: Circuit, absorber: Absorber, vaporizer: 
     atol[sl["tissue"]] = 1e-12
     atol[sl["absorbent"]] = 1e-7
     atol[sl["absorbent"].stop:] = 1e-7
-    return ModelInputs(gases=gases, tissue_names=tuple(t.name for t in tissues),
+    return GroupInputs(gases=gases, tissue_names=tuple(t.name for t in tissues),
                        tissue_labels=tuple(t.label for t in tissues), lay=lay, params=params,
                        seg_times=seg_times, jumps=jumps, y0=y0, atol=atol, k_circuit=k_circ,
-                       k_body=k_body, segments=segments, agent_index=agent_index,
-                       circuit_min_stpd=n_min, circuit_max_stpd=n_max)
+                       k_body=k_body, agent_index=agent_index, circuit_min_stpd=n_min,
+                       circuit_max_stpd=n_max, patients=patients, circuit=circuit, plan=plan)
 
 
-def initial_state(lay: np.ndarray, p: np.ndarray, patient: Patient, circuit: Circuit,
-                  absorber: Absorber, k_circ: float) -> np.ndarray:
-    """State at time 0: the patient in steady state breathing room air; the circuit filled.
+def initial_states(lay: np.ndarray, p: np.ndarray, circuit: Circuit, absorber: Absorber,
+                   k_circ: float, members: bool = False) -> np.ndarray:
+    """State at time 0 of each member, shape (B, n_state), from its first segment's
+    parameters ``p`` (shape (B, n_params)): the patient in steady state breathing room air;
+    the circuit filled.
 
     The circuit holds the first step's fresh gas without vapour (or room air, as the circuit's
     ``start_gas`` says) at its starting bag fill; the alveoli are in steady state with
@@ -225,28 +355,120 @@ def initial_state(lay: np.ndarray, p: np.ndarray, patient: Patient, circuit: Cir
     nitrogen; the absorbent starts at its stated used fraction.
     """
     sl = m.state_slices(lay)
-    y = np.zeros(m.state_size(lay))
+    y = np.zeros((p.shape[0], m.state_size(lay)))
     amount = k_circ * (circuit.volume_l + circuit.bag_fill * circuit.bag_l)
     if circuit.start_gas == "air":
-        y[m.O2] = amount * m.AIR_O2
-        y[m.N2] = amount * m.AIR_N2
+        y[:, m.O2] = amount * m.AIR_O2
+        y[:, m.N2] = amount * m.AIR_N2
     else:
-        carrier = p[m.parameter_slices(lay)["fresh"]].copy()
-        carrier[m.FIRST_AGENT:] = 0.0
-        y[: carrier.size] = amount * carrier / carrier.sum()
-    alveolar_in = p[m.P_INSPIRED] - p[m.P_DEAD_SPACE]
-    alveolar_out = alveolar_in - p[m.P_VO2] + p[m.P_VCO2]
-    if alveolar_in <= p[m.P_VO2]:
-        raise InputError("the first step's alveolar ventilation is too small to supply the "
-                         "patient's oxygen consumption breathing air; raise tidal_volume_ml or "
-                         "rate_per_min.")
+        carrier = p[:, m.parameter_slices(lay)["fresh"]].copy()
+        carrier[:, m.FIRST_AGENT:] = 0.0
+        y[:, : carrier.shape[1]] = amount * carrier / carrier.sum(axis=1, keepdims=True)
+    vo2, vco2 = p[:, m.P_VO2], p[:, m.P_VCO2]
+    alveolar_in = p[:, m.P_INSPIRED] - p[:, m.P_DEAD_SPACE]
+    alveolar_out = alveolar_in - vo2 + vco2
+    short = np.flatnonzero(alveolar_in <= vo2)
+    if short.size:
+        who = f"batch member {int(short[0])}: " if members else ""
+        raise InputError(f"{who}the first step's alveolar ventilation is too small to supply "
+                         "the patient's oxygen consumption breathing air; raise "
+                         "tidal_volume_ml or rate_per_min.")
     alv = sl["alveolar"].start
-    y[alv + m.O2] = (alveolar_in * m.AIR_O2 - p[m.P_VO2]) / alveolar_out
-    y[alv + m.CO2] = p[m.P_VCO2] / alveolar_out
-    y[alv + m.N2] = alveolar_in * m.AIR_N2 / alveolar_out
+    y[:, alv + m.O2] = (alveolar_in * m.AIR_O2 - vo2) / alveolar_out
+    y[:, alv + m.CO2] = vco2 / alveolar_out
+    y[:, alv + m.N2] = alveolar_in * m.AIR_N2 / alveolar_out
     n_soluble = int(lay[1])
     tissue = sl["tissue"]
     for c in range(int(lay[2])):
-        y[tissue.start + c * n_soluble + (m.N2 - m.FIRST_SOLUBLE)] = y[alv + m.N2]
-    y[sl["absorbent"].start] = absorber.used_fraction * absorber.capacity_l
+        y[:, tissue.start + c * n_soluble + (m.N2 - m.FIRST_SOLUBLE)] = y[:, alv + m.N2]
+    y[:, sl["absorbent"].start] = absorber.used_fraction * absorber.capacity_l
     return y
+
+
+def assemble_members(patients: Sequence[Patient], circuits: Sequence[Circuit],
+                     absorbers: Sequence[Absorber], vaporizers: Sequence[Vaporizer],
+                     plans: Sequence[Plan]) -> MemberInputs:
+    """Build the inputs of a batch: member ``b`` is ``patients[b]`` with ``circuits[b]``, …
+
+    Members sharing breathing system, absorber, vaporizer and plan (the same objects) are
+    assembled together by :func:`assemble_group`.
+
+    Raises
+    ------
+    InputError
+        As :func:`assemble`, naming the batch member.
+    """
+    keys: dict[tuple[int, ...], list[int]] = {}
+    for b in range(len(patients)):
+        key = tuple(id(items[b]) for items in (circuits, absorbers, vaporizers, plans))
+        keys.setdefault(key, []).append(b)
+    groups = []
+    for members in keys.values():
+        b0 = members[0]
+        try:
+            grp = assemble_group([patients[b] for b in members], circuits[b0], absorbers[b0],
+                                 vaporizers[b0], plans[b0])
+        except InputError as exc:
+            message = str(exc)
+            if len(members) == 1 or not message.startswith("batch member "):
+                raise InputError(f"batch member {b0}: {message}") from None
+            k, rest = message[len("batch member "):].split(": ", 1)
+            raise InputError(f"batch member {members[int(k)]}: {rest}") from None
+        groups.append((np.asarray(members, dtype=np.int64), grp))
+    return MemberInputs(tuple(groups), len(patients))
+
+
+class MemberInputs(Sequence[ModelInputs]):
+    """The inputs of a batch: the groups' arrays stacked in member order, and each member's
+    :class:`ModelInputs` made on access.
+
+    Shorter plans get empty segments at the end: an empty segment starts and ends at the
+    plan's end time, has no jump and repeats the last segment's parameters, so it leaves the
+    state exactly as it was.
+
+    Attributes
+    ----------
+    groups : tuple of (ndarray of int, GroupInputs)
+        Member indices and inputs of each group.
+    lay : ndarray of int64
+        The model layout (the first group's; the caller checks that all agree).
+    y0 : ndarray, shape (B, n_state)
+    params : ndarray, shape (B, n_segments, n_params)
+    seg_times : ndarray, shape (B, n_segments + 1), min
+    jumps : ndarray, shape (B, n_segments, n_state)
+    k_circuit : ndarray, shape (B,)
+        L STPD per litre at flowmeter and circuit conditions.
+    """
+
+    def __init__(self, groups: tuple[tuple[np.ndarray, GroupInputs], ...], n: int) -> None:
+        self.groups = groups
+        first = groups[0][1]
+        self.lay = first.lay
+        n_seg = max(grp.params.shape[1] for _, grp in groups)
+        n_state = first.y0.shape[1]
+        self.params = np.empty((n, n_seg, first.params.shape[2]))
+        self.seg_times = np.empty((n, n_seg + 1))
+        self.jumps = np.zeros((n, n_seg, n_state))
+        self.y0 = np.empty((n, n_state))
+        self.k_circuit = np.empty(n)
+        self._where = np.empty((n, 2), dtype=np.int64)
+        for g, (members, grp) in enumerate(groups):
+            k = grp.params.shape[1]
+            self.params[members, :k] = grp.params
+            self.params[members, k:] = grp.params[:, -1:]
+            self.seg_times[members, :k + 1] = grp.seg_times
+            self.seg_times[members, k + 1:] = grp.seg_times[-1]
+            self.jumps[members, :k] = grp.jumps
+            self.y0[members] = grp.y0
+            self.k_circuit[members] = grp.k_circuit
+            self._where[members, 0] = g
+            self._where[members, 1] = np.arange(len(members))
+
+    def __len__(self) -> int:
+        return len(self._where)
+
+    def __getitem__(self, b):  # type: ignore[override]
+        if isinstance(b, slice):
+            return [self[i] for i in range(*b.indices(len(self)))]
+        g, k = (int(v) for v in self._where[b])
+        return self.groups[g][1].member(k)

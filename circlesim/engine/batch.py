@@ -34,7 +34,7 @@ from circlesim.domain.patient import Patient
 from circlesim.domain.plan import Plan
 from circlesim.engine import model as m
 from circlesim.engine.alerts import AlertRule, default_rules
-from circlesim.engine.assembly import ModelInputs, assemble
+from circlesim.engine.assembly import assemble_members
 from circlesim.engine.batch_result import BatchResult
 from circlesim.engine.simulate import MAX_STEPS, SimulationError, output_times
 from circlesim.engine.solver import STATUS_MESSAGES, integrate_batch, integrate_batch_serial
@@ -170,24 +170,22 @@ def simulate_batch(patient: Patient | Sequence[Patient], circuit: Circuit | Sequ
         if pl.duration_min != duration:
             raise InputError(f"plan[{b}].duration_min must equal that of plan[0] "
                              f"({duration:g} min) in a batch; got {pl.duration_min:g}.")
-    inputs = []
-    for b in range(n):
-        try:
-            inputs.append(assemble(g["patient"][b], g["circuit"][b], g["absorber"][b],
-                                   g["vaporizer"][b], g["plan"][b]))
-        except InputError as exc:
-            raise InputError(f"batch member {b}: {exc}") from None
-    first = inputs[0]
-    for b, inp in enumerate(inputs):
-        if inp.gases != first.gases:
+    inputs = assemble_members(g["patient"], g["circuit"], g["absorber"], g["vaporizer"],
+                              g["plan"])
+    groups = inputs.groups
+    first = groups[0][1]
+    for members, grp in groups:
+        if grp.gases != first.gases:
+            b = members[0]
             raise InputError(f"every member of a batch must use the same agent; member {b} uses "
                              f"{g['vaporizer'][b].agent}, member 0 {g['vaporizer'][0].agent}.")
-        if not np.array_equal(inp.lay, first.lay):
+        if not np.array_equal(grp.lay, first.lay):
             raise InputError("every member of a batch must have the same tissue layout; member "
-                             f"{b} differs from member 0 (Patient.intertissue_diffusion).")
+                             f"{members[0]} differs from member 0 "
+                             "(Patient.intertissue_diffusion).")
     step_times = sorted({t for pl in g["plan"] for t in pl.step_times})
     t_out = output_times(duration, output_interval_min, step_times)
-    y0, params, seg_times, jumps = _stack(inputs)
+    y0, params, seg_times, jumps = inputs.y0, inputs.params, inputs.seg_times, inputs.jumps
     integrate = integrate_batch if parallel else integrate_batch_serial
     states, final, stats = integrate(y0, params, seg_times, jumps, first.lay, t_out, first.atol,
                                      rtol, H_MAX_MIN, MAX_STEPS)
@@ -197,38 +195,14 @@ def simulate_batch(patient: Patient | Sequence[Patient], circuit: Circuit | Sequ
         raise SimulationError(f"the integration failed for {failed.size} of {n} members; "
                               f"member {b}: {STATUS_MESSAGES[int(stats[b, 3])]}")
     seg_index = np.empty((n, t_out.size), dtype=np.int64)
-    for b in range(n):
-        seg_index[b] = np.searchsorted(seg_times[b], t_out, side="right") - 1
+    for members, grp in groups:
+        seg_index[members] = np.searchsorted(grp.seg_times, t_out, side="right") - 1
     np.clip(seg_index, 0, params.shape[1] - 1, out=seg_index)
     auxiliary = _auxiliary_parallel if parallel else _auxiliary_serial
     aux = auxiliary(states, params, seg_index, first.lay)
     return BatchResult(
         time_min=t_out, gases=first.gases, soluble_gases=first.gases[m.FIRST_SOLUBLE:],
         tissue_names=first.tissue_names, tissue_labels=first.tissue_labels, states=states,
-        aux=aux, final_state=final, solver_stats=stats, inputs=tuple(inputs),
+        aux=aux, final_state=final, solver_stats=stats, inputs=inputs,
         patients=g["patient"], circuits=g["circuit"], absorbers=g["absorber"],
         vaporizers=g["vaporizer"], plans=g["plan"], rules=rules)
-
-
-def _stack(inputs: Sequence[ModelInputs]) -> tuple[np.ndarray, ...]:
-    """Stack the members' arrays; shorter plans get empty segments at the end.
-
-    An empty segment starts and ends at the plan's end time, has no jump and repeats the last
-    segment's parameters, so it leaves the state exactly as it was.
-    """
-    n = len(inputs)
-    n_seg = max(len(i.params) for i in inputs)
-    n_params = inputs[0].params.shape[1]
-    n_state = inputs[0].y0.size
-    params = np.empty((n, n_seg, n_params))
-    seg_times = np.empty((n, n_seg + 1))
-    jumps = np.zeros((n, n_seg, n_state))
-    for b, inp in enumerate(inputs):
-        k = len(inp.params)
-        params[b, :k] = inp.params
-        params[b, k:] = inp.params[-1]
-        seg_times[b, :k + 1] = inp.seg_times
-        seg_times[b, k + 1:] = inp.seg_times[-1]
-        jumps[b, :k] = inp.jumps
-    y0 = np.stack([i.y0 for i in inputs])
-    return y0, params, seg_times, jumps

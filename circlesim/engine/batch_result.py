@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from collections.abc import Iterable
 from dataclasses import dataclass
+from functools import cached_property
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -20,7 +21,7 @@ from circlesim.domain.patient import Patient
 from circlesim.domain.plan import Plan
 from circlesim.engine import model as m
 from circlesim.engine.alerts import AlertRule
-from circlesim.engine.assembly import ModelInputs
+from circlesim.engine.assembly import MemberInputs
 from circlesim.engine.result import Result, SolverReport
 from circlesim.engine.simulate import build_result
 from circlesim.engine.solver import STATUS_MESSAGES
@@ -56,8 +57,9 @@ class BatchResult:
         State of each member at the end of its plan.
     solver_stats : ndarray of int64, shape (B, 4)
         Right-hand-side evaluations, accepted steps, rejected steps and status of each member.
-    inputs : tuple of ModelInputs
-        Each member's model inputs (unpadded).
+    inputs : MemberInputs
+        The batch's stacked model inputs; ``inputs[b]`` is member ``b``'s
+        :class:`~circlesim.engine.assembly.ModelInputs` (unpadded).
     patients, circuits, absorbers, vaporizers, plans : tuple, length B
         Each member's inputs, so that any member can be reproduced.
     rules : tuple of AlertRule
@@ -73,7 +75,7 @@ class BatchResult:
     aux: np.ndarray
     final_state: np.ndarray
     solver_stats: np.ndarray
-    inputs: tuple[ModelInputs, ...]
+    inputs: MemberInputs
     patients: tuple[Patient, ...]
     circuits: tuple[Circuit, ...]
     absorbers: tuple[Absorber, ...]
@@ -96,7 +98,7 @@ class BatchResult:
 
     @property
     def _lay(self) -> np.ndarray:
-        return self.inputs[0].lay
+        return self.inputs.lay
 
     def _member_values(self, values: Iterable[float]) -> np.ndarray:
         return np.fromiter(values, dtype=float, count=len(self))
@@ -104,7 +106,7 @@ class BatchResult:
     @property
     def k_circuit(self) -> np.ndarray:
         """L STPD per litre at flowmeter/circuit conditions, shape (B,)."""
-        return self._member_values(i.k_circuit for i in self.inputs)
+        return self.inputs.k_circuit
 
     @property
     def mac_percent(self) -> np.ndarray:
@@ -204,14 +206,15 @@ class BatchResult:
     @property
     def absorbent_used_fraction(self) -> np.ndarray:
         """Fraction of each member's absorbent capacity used, shape (B, T)."""
-        capacity = self._member_values(i.params[0, m.P_ABSORBENT_CAPACITY] for i in self.inputs)
+        capacity = self.inputs.params[:, 0, m.P_ABSORBENT_CAPACITY]
         return self._state("absorbent")[:, :, 0] / capacity[:, None]
 
-    @property
+    @cached_property
     def cumulative(self) -> dict[str, np.ndarray]:
-        """Amounts since the start, L STPD, each shape (B, T, G) (as ``Result.cumulative``)."""
+        """Amounts since the start, L STPD, each shape (B, T, G) (as ``Result.cumulative``;
+        made on first access and kept)."""
         out = {name: self._state(name) for name in m.ACCUMULATOR_NAMES}
-        start = np.stack([i.y0 for i in self.inputs])[:, m.state_slices(self._lay)[
+        start = self.inputs.y0[:, m.state_slices(self._lay)[
             "absorbent"].start]
         absorbed = np.zeros_like(out["delivered"])
         absorbed[:, :, m.CO2] = self._state("absorbent")[:, :, 0] - start[:, None]

@@ -61,14 +61,31 @@ def time_to_reach(time_min: np.ndarray, values: np.ndarray, level: float) -> flo
     return float(time_min[i - 1] + frac * (time_min[i] - time_min[i - 1]))
 
 
-def minutes_below(time_min: np.ndarray, values: np.ndarray, level: float) -> float:
-    """Total time (min) that ``values`` spends below ``level`` (piecewise-linear)."""
+def minutes_below(time_min: np.ndarray, values: np.ndarray, level: float) -> float | np.ndarray:
+    """Total time (min) that ``values`` spends below ``level`` (piecewise-linear).
+
+    ``values`` has time on its last axis; a 1-D series gives a float, a stack of series
+    (shape (..., T)) an array of shape (...). The series is resampled ten times finer by
+    linear interpolation (as ``numpy.interp``) and the time below is summed by the trapezoid
+    rule.
+    """
     t = np.asarray(time_min, dtype=float)
-    v = np.asarray(values, dtype=float)
+    values = np.asarray(values, dtype=float)
+    v = values.reshape(-1, values.shape[-1])  # one row per series: the same sums either way
     fine_t = np.linspace(t[0], t[-1], max(10 * t.size, 2))
-    fine_v = np.interp(fine_t, t, v)
-    below = (fine_v < level).astype(float)
-    return float(np.sum(0.5 * (below[1:] + below[:-1]) * np.diff(fine_t)))
+    # numpy.interp's formula, on the last axis of every series at once
+    j = np.clip(np.searchsorted(t, fine_t, side="right") - 1, 0, max(t.size - 2, 0))
+    if t.size > 1:
+        slope = (v[..., j + 1] - v[..., j]) / (t[j + 1] - t[j])
+        fine_v = slope * (fine_t - t[j]) + v[..., j]
+        fine_v[..., fine_t >= t[-1]] = v[..., -1:]
+    else:
+        fine_v = np.broadcast_to(v[..., :1], (*v.shape[:-1], fine_t.size))
+    below = (fine_v < level).astype(np.int64)
+    # trapezoid rule on the evenly spaced fine grid: counts are exact whatever the shape
+    halves = np.sum(below[:, 1:] + below[:, :-1], axis=-1)
+    minutes = 0.5 * halves * ((t[-1] - t[0]) / (fine_t.size - 1))
+    return float(minutes[0]) if values.ndim == 1 else minutes.reshape(values.shape[:-1])
 
 
 def minutes_within(time_min: np.ndarray, values: np.ndarray, low: float, high: float) -> float:

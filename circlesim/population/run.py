@@ -126,8 +126,7 @@ def _outcomes(t: np.ndarray, curves: dict[str, np.ndarray], ends: dict[str, np.n
         "time_to_target_min": np.array([math.nan if r is None else r for r in reached]),
         "end_tidal_mac_at_end": depth[:, -1],
         "lowest_fio2": fio2.min(axis=1),
-        "minutes_below_fio2_threshold": np.array(
-            [minutes_below(t, fio2[b], threshold) for b in range(fio2.shape[0])]),
+        "minutes_below_fio2_threshold": minutes_below(t, fio2, threshold),
         "agent_delivered_ml": ends["agent_delivered_ml"],
         "agent_delivered_g": ends["agent_delivered_g"],
         "n2o_delivered_g": ends["n2o_delivered_g"],
