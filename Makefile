@@ -21,10 +21,7 @@ PORT ?= 8866
 ## demo: the planner app on the demo scenario, served by Voilà on 127.0.0.1 (Ctrl-C stops it)
 demo: setup
 	@echo "circlesim planner: open http://127.0.0.1:$(PORT)/ in your browser (Ctrl-C stops it)."
-	$(BIN)/voila notebooks/planner.ipynb --no-browser --port=$(PORT) --Voila.ip=127.0.0.1 \
-		--Voila.port_retries=0 \
-		--Voila.kernel_websocket_connection_class=circlesim.app.serving.NoDelayConnection \
-		--preheat_kernel=True --pool_size=1 --VoilaKernelManager.fill_delay=20
+	$(BIN)/python -m circlesim.app.serving notebooks/planner.ipynb --port=$(PORT)
 
 ## lab: JupyterLab with the notebooks, on 127.0.0.1
 lab: setup

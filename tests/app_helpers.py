@@ -19,6 +19,8 @@ def all_html(widget) -> str:
     return "\n".join(out)
 
 
-def curves(figure) -> list:
-    """The figure's curves (the band's shaded traces, ``meta="band"``, left out)."""
-    return [t for t in figure.data if t.meta != "band"]
+def curves(shown) -> list:
+    """The curves of a figure, or of both of a planner's figures (``app``) in order; the band's
+    shaded traces (``meta="band"``) left out."""
+    figures = getattr(shown, "figures", (shown,))
+    return [t for figure in figures for t in figure.data if t.meta != "band"]

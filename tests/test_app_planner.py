@@ -21,7 +21,7 @@ def app() -> PlannerApp:
 
 
 def _curve(app: PlannerApp, name: str) -> np.ndarray:
-    trace = next(t for t in app.figure.data if t.name == name)
+    trace = next(t for t in curves(app) if t.name == name)
     return np.array(trace.y, dtype=float)
 
 
@@ -33,7 +33,7 @@ def test_starts_with_the_demo_scenario(app):
     assert shown.plan == demo.plan
     assert shown.patient == demo.patient
     assert app.runner.error is None
-    assert len(curves(app.figure)) == 14
+    assert len(curves(app)) == 14
     assert demo.title in app.title.value
     assert [r.cells["o2_l_min"].value for r in app.editor.rows] == ["2", "0.35", ""]
 
@@ -53,7 +53,7 @@ def test_flow_change_changes_engine_inputs_and_figure_in_place(app):
     assert step.o2_l_min == 1.5 and step.air_l_min == 0.15
     assert app.figure is figure  # the same FigureWidget, updated in place
     after = _curve(app, "End-tidal sevoflurane")
-    t = np.array(curves(app.figure)[0].x)
+    t = np.array(curves(app)[0].x)
     # More fresh gas at the same dial brings inspired agent closer to the dial, so end-tidal
     # agent after the reduction is higher (less rebreathing of gas depleted by uptake).
     # Source: textbook low-flow physiology, e.g. Baum & Aitkenhead, Anaesthesia 1995;50
@@ -191,7 +191,7 @@ def test_plan_length(app):
     app.editor.duration.value = 240.0
     result = app.runner.current.result
     assert result.time_min[-1] == 240.0
-    assert max(curves(app.figure)[0].x) == 240.0
+    assert max(curves(app)[0].x) == 240.0
     app.editor.duration.value = 50.0  # before the last step (60 min)
     assert "Step 3, Time (min): must be before the end of the plan (50 min)" in app.runner.error
 
@@ -203,8 +203,8 @@ def test_comparison_with_reference_plan(app):
     cell(app, 1, "o2_l_min").value = "0.25"
     cell(app, 1, "air_l_min").value = "0.25"
     assert app.figure is figure
-    assert len(curves(figure)) == 28
-    names = [t.name for t in curves(figure)]
+    assert len(curves(app)) == 28
+    names = [t.name for t in curves(app)]
     assert "End-tidal O2 (reference plan)" in names and "End-tidal O2 (current plan)" in names
     current = next(t for t in figure.data if t.name == "Inspired O2 (current plan)")
     ref = next(t for t in figure.data if t.name == "Inspired O2 (reference plan)")
@@ -220,7 +220,7 @@ def test_comparison_with_reference_plan(app):
     assert f"{s_cur.agent_delivered_ml:.1f} mL" in table
     assert "Time to end-tidal target" in table
     app.clear_reference()
-    assert app.figure is figure and len(curves(figure)) == 14
+    assert app.figure is figure and len(curves(app)) == 14
     assert "difference" not in app.outcomes.value
 
 

@@ -32,7 +32,7 @@ def app() -> PlannerApp:
 
 
 def _trace(app: PlannerApp, name: str):
-    return next(t for t in app.figure.data if t.name == name)
+    return next(t for t in curves(app) if t.name == name)
 
 
 
@@ -90,7 +90,7 @@ def test_target_column_reaches_the_engine_and_the_figure(app):
     cell(app, 1, "target_within_min").value = ""
     cell(app, 1, "target_mac").value = ""
     assert app.runner.error is None and app.runner.current.result.control is None
-    assert app.figure is figure and len(curves(figure)) == 14
+    assert app.figure is figure and len(curves(app)) == 14
     assert app.adopt_button.disabled
     assert "Target" not in app.warnings.value
 

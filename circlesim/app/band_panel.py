@@ -1,7 +1,9 @@
 """The planner's band over similar patients: its settings and a background worker.
 
-The main curve is predicted on every change in the kernel's own thread (tens of milliseconds).
-The band needs a batch of patients, so :class:`BandWorker` runs it on one background thread:
+The main curve is predicted on every change in the kernel's own thread (milliseconds). The
+band needs a batch of patients, so :class:`BandWorker` runs it on one background thread, at the
+lowest priority and without numba's worker threads, so that it only takes the processor time
+the browser drawing the main curve leaves over:
 each change hands it the newest scenario and returns at once; the worker always takes the
 newest request (older ones are dropped) and calls back only if no newer change arrived while
 it ran. The batch integration is compiled with ``nogil``, so the kernel keeps answering the
@@ -14,6 +16,8 @@ naming the field; the band on screen stays the last good one.
 from __future__ import annotations
 
 import html
+import os
+import sys
 import threading
 import time
 from collections.abc import Callable
@@ -26,8 +30,17 @@ from circlesim.base.validation import InputError
 from circlesim.population.band import Band, BandSettings, run_band
 from circlesim.scenario import Scenario
 
-__all__ = ["BandPanel", "BandWorker", "band_outcomes_html", "band_warnings_html", "measured_points",
-           "on_main_thread"]
+__all__ = ["BandPanel", "BandWorker", "band_outcomes_html", "band_warnings_html",
+           "kernel_loop", "measured_points", "on_main_thread"]
+
+
+def kernel_loop():
+    """The Jupyter kernel's event loop (tornado ``IOLoop``), or None outside a kernel."""
+    try:
+        from IPython import get_ipython
+    except ImportError:  # pragma: no cover - IPython comes with ipykernel
+        return None
+    return getattr(getattr(get_ipython(), "kernel", None), "io_loop", None)
 
 
 def on_main_thread(fn: Callable[[], None]) -> None:
@@ -37,13 +50,7 @@ def on_main_thread(fn: Callable[[], None]) -> None:
     Widget updates that carry binary buffers (the figure's curves) reach the page reliably only
     from the kernel's own thread, so the worker hands its result over instead of drawing.
     """
-    loop = None
-    try:
-        from IPython import get_ipython
-
-        loop = getattr(getattr(get_ipython(), "kernel", None), "io_loop", None)
-    except ImportError:  # pragma: no cover - IPython comes with ipykernel
-        loop = None
+    loop = kernel_loop()
     if loop is None:
         fn()
     else:
@@ -91,6 +98,7 @@ class BandWorker:
             self._request = None
 
     def _loop(self) -> None:
+        _yield_to_others()
         while True:
             with self._lock:
                 while self._request is None:
@@ -100,7 +108,7 @@ class BandWorker:
                 self.busy = True
             start = time.perf_counter()
             try:
-                band = run_band(scenario, settings, plan=plan)
+                band = run_band(scenario, settings, plan=plan, parallel=False)
             except Exception as exc:  # shown inline, never a traceback
                 message = str(exc) if isinstance(exc, InputError) else (
                     f"the band could not be computed ({type(exc).__name__}: {exc})")
@@ -111,6 +119,19 @@ class BandWorker:
                     self._done(band, 1000.0 * (time.perf_counter() - start), generation)
             finally:
                 self.busy = False
+
+
+def _yield_to_others() -> None:
+    """Give the calling thread the lowest scheduling priority (Linux: niceness is per thread).
+
+    The band then runs on the time the browser, the server and the kernel's main thread leave
+    over, so drawing the main curve is not slowed down by the band computed behind it.
+    """
+    if sys.platform.startswith("linux"):
+        try:
+            os.setpriority(os.PRIO_PROCESS, threading.get_native_id(), 19)
+        except OSError:  # pragma: no cover - lowering one's priority is always allowed
+            pass
 
 
 class BandPanel:

@@ -34,6 +34,7 @@ from circlesim.app.band_panel import (
     BandWorker,
     band_outcomes_html,
     band_warnings_html,
+    kernel_loop,
     measured_points,
     on_main_thread,
 )
@@ -41,6 +42,7 @@ from circlesim.app.comparison import outcome_table, table_html
 from circlesim.app.controls import SettingsPanel
 from circlesim.app.export import ExportPanel
 from circlesim.app.fields import format_number
+from circlesim.app.figure_shown import FigureShown
 from circlesim.app.fit_width import FitWidth
 from circlesim.app.loading import LoadBar, examples_folder
 from circlesim.app.plan_columns import locate_error
@@ -59,9 +61,12 @@ __all__ = ["DEMO_SCENARIO", "PlannerApp", "planner"]
 DEMO_SCENARIO = "flow_reduction_sevoflurane.toml"
 
 _MIRRORED = ("tidal_volume_ml", "rate_per_min")
-#: Height of the figure, px: its agent and oxygen panels fit a 768-pixel-high screen beside
-#: the plan.
-FIGURE_HEIGHT_PX = 700
+#: The figure watched on every change (agent and oxygen panels) and the one below it (N2O and
+#: N2, flows and bag, liquid agent): two figures, so that the first is redrawn first.
+MAIN_PANELS, MORE_PANELS = (1, 2), (3, 4, 5)
+#: Heights of the two figures, px: the agent and oxygen panels fit a 768-pixel-high screen
+#: beside the plan; both figures fit a 1080-pixel-high one.
+FIGURE_HEIGHT_PX, MORE_FIGURE_HEIGHT_PX = 330, 430
 
 
 def demo_scenario() -> Scenario:
@@ -93,7 +98,10 @@ class PlannerApp:
     settings : SettingsPanel
     editor : PlanEditor
     figure : plotly.graph_objects.FigureWidget
-        The one figure, updated in place.
+        The agent and oxygen panels (and the band), updated in place on every change.
+    more_figure : plotly.graph_objects.FigureWidget or None
+        N2O and N2, flows and bag, liquid agent: updated right after :attr:`figure`. In a
+        kernel it is made once the page shows :attr:`figure` (None until then).
     widget : ipywidgets.VBox
     """
 
@@ -150,7 +158,7 @@ class PlannerApp:
         self.advise_button = self.editor.add_action(
             "Advise", lambda _: self.advisor.open(),
             tooltip="Ask the plan advisor for flows and dials that meet an end-tidal target")
-        self.figure = None
+        self.figure = self.more_figure = None
         self._show_inputs(self.scenario)
         self.update()
         if self.figure is None:
@@ -194,16 +202,19 @@ class PlannerApp:
         left = w.VBox([tabs, self.error, self.advisor.widget, warnings, results],
                       layout=w.Layout(flex="0 1 760px", min_width="0"))
         left.add_class("cs-left")
+        figures = [f for f in (self.figure, self.more_figure) if f is not None]
         right = w.VBox([w.HBox([self.status, self.band_note],
                                layout=w.Layout(grid_gap="12px", flex_flow="row wrap")),
-                        self.figure], layout=w.Layout(flex="1 1 480px",
-                                                                   min_width="0"))
+                        *figures],
+                       layout=w.Layout(flex="1 1 480px", min_width="0"))
         right.add_class("cs-right")
+        self.right = right
         main = w.HBox([left, right], layout=w.Layout(flex_flow="row nowrap",
                                                      align_items="flex-start",
                                                      grid_gap="10px"))
         main.add_class("cs-main")
-        app = w.VBox([style_widget(), w.HTML(caution_html()), self.title, main, FitWidth()])
+        app = w.VBox([style_widget(), w.HTML(caution_html()), self.title, main, FitWidth(),
+                      FigureShown(self._add_more_figure)])
         app.add_class("cs-app")
         return app
 
@@ -211,9 +222,30 @@ class PlannerApp:
         # As plotly's own FigureWidget display does: the page's first view of the figure
         # is its state now, with everything drawn since it was made.
         with self._figure_lock:
-            self.figure._widget_layout = deepcopy(self.figure._layout_obj._props)
-            self.figure._widget_data = deepcopy(self.figure._data)
+            for figure in self.figures:
+                figure._widget_layout = deepcopy(figure._layout_obj._props)
+                figure._widget_data = deepcopy(figure._data)
         return self.widget._repr_mimebundle_(**kwargs)
+
+    @property
+    def figures(self) -> tuple:
+        """The figures made so far: the agent and oxygen panels, then the others."""
+        return tuple(f for f in (self.figure, self.more_figure) if f is not None)
+
+    def _add_more_figure(self) -> None:
+        """Make the second figure (in a kernel: once the page shows the first, see
+        :class:`~circlesim.app.figure_shown.FigureShown`) and put it below the first."""
+        if self.more_figure is not None or self.runner.current is None:
+            return
+        results, labels = self.runner.shown()
+        threshold = self.runner.current.scenario.report.fio2_threshold
+        with self._figure_lock:
+            self.more_figure = _figure_widget(results, labels, threshold, MORE_PANELS,
+                                              MORE_FIGURE_HEIGHT_PX, "cs-more-figure")
+            duration = self.runner.current.scenario.plan.duration_min
+            self.more_figure.layout.xaxis.range = (0.0, duration)
+        if hasattr(self, "right"):
+            self.right.children = (*self.right.children, self.more_figure)
 
     def _first_band(self) -> None:
         """The first band, before the app is shown (Voilà runs this ahead of the page)."""
@@ -381,30 +413,24 @@ class PlannerApp:
     # ---- internals ----------------------------------------------------------------------------
     def _draw(self) -> None:
         """Figure first (that is what the user watches), then the panels."""
-        from circlesim.reports.timeline import refresh_timeline, timeline_figure
+        from circlesim.reports.timeline import refresh_timeline
 
         current = self.runner.current
         results, labels = self.runner.shown()
         threshold = current.scenario.report.fio2_threshold
+        duration = current.scenario.plan.duration_min
         if self.figure is None:
-            import plotly.graph_objects as go
-
-            from circlesim.reports.band import add_band_slots
-
-            # the band's traces are part of the figure from the start: traces added after
-            # the page has the widget would only reach it as messages
-            figure = timeline_figure(results, labels, fio2_threshold=threshold,
-                                     height=FIGURE_HEIGHT_PX)
-            add_band_slots(figure)
-            # beside the plan the figure is narrow: smaller legends leave the curves room
-            figure.update_layout({("legend" if r == 1 else f"legend{r}"): {"font": {"size": 10}}
-                                  for r in range(1, 6)}, margin={"l": 40, "r": 4, "t": 30})
-            self.figure = go.FigureWidget(figure)
-            self.figure.add_class("cs-figure")
-            self.figure._config = {**self.figure._config, "responsive": True,
-                                   "displaylogo": False}
+            self.figure = _figure_widget(results, labels, threshold, MAIN_PANELS,
+                                         FIGURE_HEIGHT_PX, "cs-figure", band=True)
+            if kernel_loop() is None:  # plain Python: no page to wait for
+                self._add_more_figure()
         else:
-            refresh_timeline(self.figure, results, labels, fio2_threshold=threshold)
+            # the watched panels first: their message reaches the page first
+            for figure in self.figures:
+                refresh_timeline(figure, results, labels, fio2_threshold=threshold)
+        for figure in self.figures:  # the two figures share the time axis
+            if figure.layout.xaxis.range != (0.0, duration):
+                figure.layout.xaxis.range = (0.0, duration)
         self.error.value = ""
         self.editor.mark(None, None)
         self.warnings.value = alerts_html(current.result.alerts,
@@ -466,6 +492,31 @@ class PlannerApp:
         finally:
             self._muted = False
         self.update()
+
+
+def _figure_widget(results, labels, threshold: float, panels: tuple[int, ...], height: int,
+                   css_class: str, band: bool = False):
+    """One of the planner's figures (a plotly ``FigureWidget``) showing ``panels``; with
+    ``band``, the band's (empty) traces too."""
+    import plotly.graph_objects as go
+
+    from circlesim.reports.band import add_band_slots
+    from circlesim.reports.timeline import timeline_figure
+
+    figure = timeline_figure(results, labels, fio2_threshold=threshold, height=height,
+                             panels=panels)
+    if band:
+        # part of the figure from the start: traces added after the page has the widget
+        # would only reach it as messages
+        add_band_slots(figure)
+    # beside the plan the figure is narrow: smaller legends leave the curves room
+    figure.update_layout({("legend" if r == 1 else f"legend{r}"): {"font": {"size": 10}}
+                          for r in range(1, len(panels) + 1)},
+                         margin={"l": 40, "r": 4, "t": 30, "b": 36})
+    widget = go.FigureWidget(figure)
+    widget.add_class(css_class)
+    widget._config = {**widget._config, "responsive": True, "displaylogo": False}
+    return widget
 
 
 def _targets(result) -> tuple:

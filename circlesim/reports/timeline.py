@@ -18,7 +18,7 @@ from plotly.subplots import make_subplots
 from circlesim.engine.result import Result
 from circlesim.properties import NITROUS_OXIDE, agent
 
-__all__ = ["PANELS", "refresh_timeline", "set_reference_lines", "timeline_figure",
+__all__ = ["ALL_PANELS", "PANELS", "refresh_timeline", "set_reference_lines", "timeline_figure",
            "timeline_traces", "update_timeline"]
 
 #: Panel titles, top to bottom.
@@ -29,6 +29,8 @@ PANELS = (
     "Flows (L/min) and bag (L)",
     "Liquid agent used (mL)",
 )
+#: Every panel, by number (1 = agent … 5 = liquid agent).
+ALL_PANELS = tuple(range(1, len(PANELS) + 1))
 _DASHES = ("solid", "dash", "dot", "dashdot", "longdash")
 _O2_COLOUR = "#2ca02c"
 _N2_COLOUR = "#7f7f7f"
@@ -77,10 +79,19 @@ def timeline_traces(result: Result, label: str = "", dash: str = "solid") -> lis
     ``result.control`` adds the end-tidal target and the dial the controller set to the agent
     panel), so a figure can be updated in place when the same kind of result changes.
     """
-    return [(line.trace(), line.row) for line in _lines(result, label, dash)]
+    return [(line.trace(), line.row) for line in _all_lines(result, label, dash)]
 
 
-def _lines(result: Result, label: str, dash: str) -> list[_Line]:
+def _lines(result: Result, label: str, dash: str,
+           panels: Sequence[int] = ALL_PANELS) -> list[_Line]:
+    """The curves of ``result`` in ``panels``, each placed in its row of a figure showing
+    those panels."""
+    position = {panel: row for row, panel in enumerate(panels, start=1)}
+    return [line._replace(row=position[line.row]) for line in _all_lines(result, label, dash)
+            if line.row in position]
+
+
+def _all_lines(result: Result, label: str, dash: str) -> list[_Line]:
     t = result.time_min
     tag = f" ({label})" if label else ""
     colour = agent(result.agent).colour
@@ -126,9 +137,15 @@ def _lines(result: Result, label: str, dash: str) -> list[_Line]:
     return out
 
 
+def _panels_of(fig: go.Figure) -> tuple[int, ...]:
+    """The panel numbers a figure made by :func:`timeline_figure` shows (kept in its meta)."""
+    meta = fig.layout.meta if isinstance(fig.layout.meta, dict) else {}
+    return tuple(meta.get("panels", ALL_PANELS))
+
+
 def timeline_figure(results: Sequence[Result], labels: Sequence[str] | None = None, *,
                     fio2_threshold: float | None = 0.30, height: int = 900,
-                    widget: bool = False) -> go.Figure:
+                    widget: bool = False, panels: Sequence[int] = ALL_PANELS) -> go.Figure:
     """A figure with the standard panels for one or more results on shared axes.
 
     Parameters
@@ -142,20 +159,30 @@ def timeline_figure(results: Sequence[Result], labels: Sequence[str] | None = No
     height : int, px
     widget : bool
         Return a ``go.FigureWidget`` (for the app) instead of a ``go.Figure``.
+    panels : sequence of int
+        The panels to show, by number in :data:`PANELS` (1–5, top to bottom); default all.
+        The app draws the agent and oxygen panels in one figure and the others in a second,
+        so the panels it watches are redrawn first.
     """
     if not results:
         raise ValueError("results must hold at least one result; got none.")
+    panels = tuple(int(k) for k in panels)
+    if not panels or any(k not in ALL_PANELS for k in panels):
+        raise ValueError(f"panels must be numbers from 1 to {len(PANELS)}; got {panels}.")
     labels = list(labels) if labels is not None else [""] * len(results)
-    fig = make_subplots(rows=len(PANELS), cols=1, shared_xaxes=True, vertical_spacing=0.03,
-                        subplot_titles=PANELS)
-    for k, (result, label) in enumerate(zip(results, labels, strict=True)):
-        for trace, row in timeline_traces(result, label, _DASHES[k % len(_DASHES)]):
-            fig.add_trace(trace, row=row, col=1)
+    fig = make_subplots(rows=len(panels), cols=1, shared_xaxes=True,
+                        vertical_spacing=0.03 * len(PANELS) / len(panels),
+                        subplot_titles=[PANELS[k - 1] for k in panels])
+    fig.layout.meta = {"panels": list(panels)}
+    lines = [line for k, (result, label) in enumerate(zip(results, labels, strict=True))
+             for line in _lines(result, label, _DASHES[k % len(_DASHES)], panels)]
+    fig.add_traces([line.trace() for line in lines], rows=[line.row for line in lines],
+                   cols=[1] * len(lines))
     set_reference_lines(fig, results[0].mac_percent, fio2_threshold)
-    fig.update_xaxes(title_text="time (min)", row=len(PANELS), col=1)
+    fig.update_xaxes(title_text="time (min)", row=len(panels), col=1)
     fig.update_layout(height=height, hovermode="x unified", margin={"l": 60, "r": 20, "t": 40,
                                                                     "b": 40})
-    for row in range(1, len(PANELS) + 1):
+    for row in range(1, len(panels) + 1):
         low, top = fig.layout["yaxis" if row == 1 else f"yaxis{row}"].domain
         # A legend longer than its panel (many results compared) scrolls instead of
         # running into the next panel's legend.
@@ -182,10 +209,11 @@ def set_reference_lines(fig: go.Figure, mac_percent: float,
     fio2_threshold : float or None, fraction 0.21–1
         None leaves the threshold line out (or hides an existing one).
     """
+    panels = _panels_of(fig)
     wanted = {f"mac-{m:g}": (m * mac_percent, f"{m:g} MAC{' age-adjusted' if m == 1 else ''} "
                                               f"({m * mac_percent:.2f} %)")
-              for m in _MAC_MULTIPLES}
-    if fio2_threshold is not None:
+              for m in _MAC_MULTIPLES} if 1 in panels else {}
+    if fio2_threshold is not None and 2 in panels:
         wanted["fio2-threshold"] = (fio2_threshold, f"FIO2 threshold {fio2_threshold:.2f}")
     # The lines' settings are kept in layout.meta, so an unchanged figure costs one lookup.
     meta = fig.layout.meta if isinstance(fig.layout.meta, dict) else {}
@@ -217,12 +245,14 @@ def set_reference_lines(fig: go.Figure, mac_percent: float,
         if name == "fio2-threshold":
             fig.add_hline(y=y, name=name, line={"color": "#d62728", "dash": "dash", "width": 1},
                           annotation_text=text, annotation_name=name,
-                          annotation_position="bottom left", row=2, col=1)
+                          annotation_position="bottom left", row=panels.index(2) + 1,
+                          col=1)
         else:
             fig.add_hline(y=y, name=name, line={"color": "#bbbbbb", "dash": "dot", "width": 1},
                           annotation_text=text, annotation_name=name,
                           annotation_font={"size": 10, "color": "#777777"},
-                          annotation_position="top right", row=1, col=1)
+                          annotation_position="top right", row=panels.index(1) + 1,
+                          col=1)
 
 
 def update_timeline(fig: go.Figure, results: Sequence[Result]) -> bool:
@@ -231,8 +261,9 @@ def update_timeline(fig: go.Figure, results: Sequence[Result]) -> bool:
     Returns False (and changes nothing) if the number or kind of traces differs, in which case
     the caller should rebuild the figure.
     """
+    panels = _panels_of(fig)
     new = [line for k, r in enumerate(results)
-           for line in _lines(r, "", _DASHES[k % len(_DASHES)])]
+           for line in _lines(r, "", _DASHES[k % len(_DASHES)], panels)]
     if len(new) != len(fig.data):
         return False
     with fig.batch_update():
@@ -262,8 +293,9 @@ def refresh_timeline(fig: go.Figure, results: Sequence[Result],
     if not results:
         raise ValueError("results must hold at least one result; got none.")
     labels = list(labels) if labels is not None else [""] * len(results)
+    panels = _panels_of(fig)
     lines = [line for k, (result, label) in enumerate(zip(results, labels, strict=True))
-             for line in _lines(result, label, _DASHES[k % len(_DASHES)])]
+             for line in _lines(result, label, _DASHES[k % len(_DASHES)], panels)]
     # traces with meta "band" (circlesim.reports.band) stay as they are, in front
     kept = tuple(t for t in fig.data if t.meta == "band")
     main = [t for t in fig.data if t.meta != "band"]
