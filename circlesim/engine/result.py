@@ -8,6 +8,7 @@ flows in L/min at the flowmeters' conditions, uptake in mL/min STPD, liquid agen
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cached_property
 from typing import TYPE_CHECKING, Any, Protocol
 
 import numpy as np
@@ -260,13 +261,19 @@ class Result:
         """Partial pressure (kPa) in the lungs or body of a dry-gas fraction series."""
         return np.asarray(fraction) * self.dry_pressure_kpa
 
-    def segment_values(self, setting: str) -> np.ndarray:
-        """A plan setting (a :class:`~circlesim.domain.plan.Segment` field) at each output time."""
+    @cached_property
+    def _segment_lookup(self) -> tuple[tuple, np.ndarray]:
+        """The plan's segments and the segment in force at each output time (made once)."""
         segments = self.plan.segments(self.patient.default_tidal_volume_ml,
                                       self.patient.default_rate_per_min, self.circuit.valve)
         starts = np.array([s.start_min for s in segments])
         index = np.clip(np.searchsorted(starts, self.time_min, side="right") - 1, 0,
                         len(segments) - 1)
+        return segments, index
+
+    def segment_values(self, setting: str) -> np.ndarray:
+        """A plan setting (a :class:`~circlesim.domain.plan.Segment` field) at each output time."""
+        segments, index = self._segment_lookup
         return np.array([getattr(s, setting) for s in segments])[index]
 
     @property
