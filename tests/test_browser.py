@@ -1,14 +1,15 @@
 """The planner app in a real browser: Voilà serves notebooks/planner.ipynb on a free loopback
-port (with a pre-started kernel, as ``make demo``) and Debian's Chromium, driven by Playwright,
-changes the fresh gas flow.
+port (started as ``make demo`` starts it, :func:`circlesim.app.serving.voila_command`) and
+Debian's Chromium, driven by Playwright, changes the fresh gas flow.
 
 Recorded, not asserted (speed goals live in benchmarks/): the time from opening the address to
-the first drawn figure, the time from a change to the redrawn figure, and the time from a
+the first drawn figure, the time from a change to the redrawn agent and oxygen panels (the
+planner's first figure) and to all five panels redrawn (both figures), and the time from a
 change to the redrawn band over similar patients. Checked: at 1366×768 the plan table, the
-warnings and the figure's agent and oxygen panels are on screen together, the figure beside the
-plan; at 1920×1080 the whole working set is; the band appears, follows a change and never
-holds up the next one; a bad entry (in the plan or in the band settings) leaves the last good
-prediction and band on screen.
+warnings and the agent and oxygen figure are on screen together, the figure beside the plan;
+at 1920×1080 the whole working set, both figures included, is; the band appears, follows a
+change and never holds up the next one; a bad entry (in the plan or in the band settings)
+leaves the last good prediction and band on screen.
 
 No browser is downloaded: Playwright is pointed at /usr/bin/chromium. Without it the test is
 skipped locally, but fails when CIRCLESIM_REQUIRE_BROWSER=1 (as in CI, where .ci/run installs
