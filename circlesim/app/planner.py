@@ -43,6 +43,7 @@ from circlesim.app.controls import SettingsPanel
 from circlesim.app.export import ExportPanel
 from circlesim.app.fields import format_number
 from circlesim.app.figure_shown import FigureShown
+from circlesim.app.figures import figure_widget, refresh_figures
 from circlesim.app.fit_width import FitWidth
 from circlesim.app.loading import LoadBar, examples_folder
 from circlesim.app.plan_columns import locate_error
@@ -61,12 +62,6 @@ __all__ = ["DEMO_SCENARIO", "PlannerApp", "planner"]
 DEMO_SCENARIO = "flow_reduction_sevoflurane.toml"
 
 _MIRRORED = ("tidal_volume_ml", "rate_per_min")
-#: The figure watched on every change (agent and oxygen panels) and the one below it (N2O and
-#: N2, flows and bag, liquid agent): two figures, so that the first is redrawn first.
-MAIN_PANELS, MORE_PANELS = (1, 2), (3, 4, 5)
-#: Heights of the two figures, px: the agent and oxygen panels fit a 768-pixel-high screen
-#: beside the plan; both figures fit a 1080-pixel-high one.
-FIGURE_HEIGHT_PX, MORE_FIGURE_HEIGHT_PX = 330, 430
 
 
 def demo_scenario() -> Scenario:
@@ -238,12 +233,9 @@ class PlannerApp:
         if self.more_figure is not None or self.runner.current is None:
             return
         results, labels = self.runner.shown()
-        threshold = self.runner.current.scenario.report.fio2_threshold
         with self._figure_lock:
-            self.more_figure = _figure_widget(results, labels, threshold, MORE_PANELS,
-                                              MORE_FIGURE_HEIGHT_PX, "cs-more-figure")
-            duration = self.runner.current.scenario.plan.duration_min
-            self.more_figure.layout.xaxis.range = (0.0, duration)
+            self.more_figure = figure_widget(
+                results, labels, self.runner.current.scenario.report.fio2_threshold, main=False)
         if hasattr(self, "right"):
             self.right.children = (*self.right.children, self.more_figure)
 
@@ -412,25 +404,16 @@ class PlannerApp:
 
     # ---- internals ----------------------------------------------------------------------------
     def _draw(self) -> None:
-        """Figure first (that is what the user watches), then the panels."""
-        from circlesim.reports.timeline import refresh_timeline
-
+        """Figures first (that is what the user watches), then the panels."""
         current = self.runner.current
         results, labels = self.runner.shown()
         threshold = current.scenario.report.fio2_threshold
-        duration = current.scenario.plan.duration_min
         if self.figure is None:
-            self.figure = _figure_widget(results, labels, threshold, MAIN_PANELS,
-                                         FIGURE_HEIGHT_PX, "cs-figure", band=True)
+            self.figure = figure_widget(results, labels, threshold, main=True)
             if kernel_loop() is None:  # plain Python: no page to wait for
                 self._add_more_figure()
         else:
-            # the watched panels first: their message reaches the page first
-            for figure in self.figures:
-                refresh_timeline(figure, results, labels, fio2_threshold=threshold)
-        for figure in self.figures:  # the two figures share the time axis
-            if figure.layout.xaxis.range != (0.0, duration):
-                figure.layout.xaxis.range = (0.0, duration)
+            refresh_figures(self.figures, results, labels, threshold)
         self.error.value = ""
         self.editor.mark(None, None)
         self.warnings.value = alerts_html(current.result.alerts,
@@ -492,31 +475,6 @@ class PlannerApp:
         finally:
             self._muted = False
         self.update()
-
-
-def _figure_widget(results, labels, threshold: float, panels: tuple[int, ...], height: int,
-                   css_class: str, band: bool = False):
-    """One of the planner's figures (a plotly ``FigureWidget``) showing ``panels``; with
-    ``band``, the band's (empty) traces too."""
-    import plotly.graph_objects as go
-
-    from circlesim.reports.band import add_band_slots
-    from circlesim.reports.timeline import timeline_figure
-
-    figure = timeline_figure(results, labels, fio2_threshold=threshold, height=height,
-                             panels=panels)
-    if band:
-        # part of the figure from the start: traces added after the page has the widget
-        # would only reach it as messages
-        add_band_slots(figure)
-    # beside the plan the figure is narrow: smaller legends leave the curves room
-    figure.update_layout({("legend" if r == 1 else f"legend{r}"): {"font": {"size": 10}}
-                          for r in range(1, len(panels) + 1)},
-                         margin={"l": 40, "r": 4, "t": 30, "b": 36})
-    widget = go.FigureWidget(figure)
-    widget.add_class(css_class)
-    widget._config = {**widget._config, "responsive": True, "displaylogo": False}
-    return widget
 
 
 def _targets(result) -> tuple:
