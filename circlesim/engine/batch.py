@@ -34,7 +34,7 @@ from circlesim.domain.patient import Patient
 from circlesim.domain.plan import Plan
 from circlesim.engine import model as m
 from circlesim.engine.alerts import AlertRule, default_rules
-from circlesim.engine.assembly import assemble_members
+from circlesim.engine.batch_inputs import assemble_members
 from circlesim.engine.batch_result import BatchResult
 from circlesim.engine.simulate import MAX_STEPS, SimulationError, output_times
 from circlesim.engine.solver import STATUS_MESSAGES, integrate_batch, integrate_batch_serial

@@ -21,7 +21,7 @@ from circlesim.domain.patient import Patient
 from circlesim.domain.plan import Plan
 from circlesim.engine import model as m
 from circlesim.engine.alerts import AlertRule
-from circlesim.engine.assembly import MemberInputs
+from circlesim.engine.batch_inputs import MemberInputs
 from circlesim.engine.result import Result, SolverReport
 from circlesim.engine.simulate import build_result
 from circlesim.engine.solver import STATUS_MESSAGES
