@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 
 import numpy as np
 
@@ -159,15 +159,11 @@ class GroupInputs:
     def member(self, b: int) -> ModelInputs:
         """Member ``b``'s inputs as :class:`ModelInputs` (with its resolved segments)."""
         p = self.patients[b]
-        segments = self.plan.segments(p.default_tidal_volume_ml, p.default_rate_per_min,
-                                      self.circuit.valve)
-        return ModelInputs(gases=self.gases, tissue_names=self.tissue_names,
-                           tissue_labels=self.tissue_labels, lay=self.lay,
-                           params=self.params[b], seg_times=self.seg_times, jumps=self.jumps,
-                           y0=self.y0[b], atol=self.atol, k_circuit=self.k_circuit,
-                           k_body=self.k_body, segments=segments, agent_index=self.agent_index,
-                           circuit_min_stpd=self.circuit_min_stpd,
-                           circuit_max_stpd=self.circuit_max_stpd)
+        own = {"params": self.params[b], "y0": self.y0[b],
+               "segments": self.plan.segments(p.default_tidal_volume_ml, p.default_rate_per_min,
+                                              self.circuit.valve)}
+        return ModelInputs(**{f.name: own[f.name] if f.name in own else getattr(self, f.name)
+                              for f in fields(ModelInputs)})
 
 
 def assemble(patient: Patient, circuit: Circuit, absorber: Absorber, vaporizer: Vaporizer,
