@@ -71,6 +71,24 @@ def test_similar_patients_share_body_size_and_age():
     assert co.std() > 0.05 * co.mean()
 
 
+def test_kept_draws_are_the_draws_made_afresh():
+    from circlesim.population import band as band_module
+
+    first = similar_patients(SCENARIO, SMALL)
+    band_module._draw.cache_clear()
+    fresh = similar_patients(SCENARIO, SMALL)
+    again = similar_patients(SCENARIO, SMALL)
+    assert first[0] == fresh[0] == again[0] and first[1] == fresh[1] == again[1]
+    assert band_module._draw.cache_info().hits >= 1
+    # what the caller gets is its own list: changing it does not change the kept draws
+    again[0].clear()
+    assert similar_patients(SCENARIO, SMALL)[0] == fresh[0]
+    # another seed or another patient draws again
+    assert similar_patients(SCENARIO, replace(SMALL, seed=SMALL.seed + 1))[0] != fresh[0]
+    heavier = replace(SCENARIO, patient=replace(SCENARIO.patient, weight_kg=90.0))
+    assert {p.weight_kg for p in similar_patients(heavier, SMALL)[0]} == {90.0}
+
+
 def test_threshold_share_is_reported():
     # Closed-ish minimal flow with little O2: many similar patients fall below FIO2 0.30.
     plan = cs.Plan([cs.Step(0, o2_l_min=4.0, air_l_min=2.0, dial_percent=3.0),

@@ -20,6 +20,7 @@ and the band has zero width; 1: the sourced spread).
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass, field
 
@@ -28,7 +29,7 @@ import numpy as np
 from circlesim.base.validation import InputError, bounded, check_fields
 from circlesim.domain.equipment import Circuit
 from circlesim.domain.patient import Patient
-from circlesim.domain.physiology import Factors
+from circlesim.domain.physiology import Factors, FitUncertainty
 from circlesim.domain.plan import Plan
 from circlesim.engine.batch import simulate_batch
 from circlesim.outcomes.summary import time_to_reach
@@ -97,6 +98,9 @@ def similar_patients(scenario: Scenario, settings: BandSettings) -> tuple[list[P
                                                                          list[Circuit], str]:
     """Patients like the scenario's (and their circuits), and where their spread comes from.
 
+    The same patient, circuit, fit and settings give the same draws; the last few are kept, so
+    that a planner re-running the band after a change of plan does not draw them again.
+
     Returns
     -------
     patients, circuits : list, length ``settings.patients`` (draws a patient cannot have
@@ -104,11 +108,19 @@ def similar_patients(scenario: Scenario, settings: BandSettings) -> tuple[list[P
     basis : str
         "similar patients" or "the fit to the measured case".
     """
-    base, circuit = scenario.model_patient, scenario.model_circuit
+    patients, circuits, basis = _draw(scenario.model_patient, scenario.model_circuit,
+                                      scenario.fit, settings)
+    return list(patients), list(circuits), basis
+
+
+@functools.lru_cache(maxsize=8)
+def _draw(base: Patient, circuit: Circuit, fit: FitUncertainty | None,
+          settings: BandSettings) -> tuple[tuple[Patient, ...], tuple[Circuit, ...], str]:
+    """:func:`similar_patients` on hashable arguments (a fit is keyed by identity)."""
     n, s = settings.patients, settings.spread
     draws: list[Factors | dict[str, float]] = []
-    if scenario.fit is not None:
-        for f in scenario.fit.sample_factors(n, settings.seed, circuit.leak_ml_min):
+    if fit is not None:
+        for f in fit.sample_factors(n, settings.seed, circuit.leak_ml_min):
             draws.append({name: getattr(f, name) ** s for name in
                           ("cardiac_output", "alveolar_ventilation", "vo2", "frc",
                            "solubility")} | ({} if f.leak_ml_min is None or s == 0.0 else
@@ -133,7 +145,7 @@ def similar_patients(scenario: Scenario, settings: BandSettings) -> tuple[list[P
     if not patients:
         raise InputError("no similar patient could be drawn for this patient; check the "
                          "patient's settings.")
-    return patients, circuits, basis
+    return tuple(patients), tuple(circuits), basis
 
 
 @dataclass(frozen=True, eq=False)
