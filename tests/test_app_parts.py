@@ -104,3 +104,25 @@ def test_outcome_table_single_plan():
     labels = [r[0] for r in rows]
     assert labels[0].startswith("Time to end-tidal target (1 MAC =")
     assert "Lowest FIO2" in labels and "Liquid agent used" in labels
+
+
+def test_figures_import_plotly_from_the_published_address(monkeypatch):
+    import json
+
+    import plotly.graph_objects as go
+
+    from circlesim.app import plotly_bundle
+
+    # Outside circlesim's server (JupyterLab, plain Voilà): plotly's own FigureWidget.
+    monkeypatch.delenv(plotly_bundle.BUNDLE_ADDRESS_ENV, raising=False)
+    assert plotly_bundle.figure_widget_class() is go.FigureWidget
+    # The published file is plotly's widget code, where the server publishes it.
+    address = plotly_bundle.bundle_address()
+    name = address.removeprefix("voila/static/").split("?")[0]
+    assert (plotly_bundle.bundle_directory() / name).stat().st_size > 1_000_000
+    # Under the server: a FigureWidget whose front-end code imports that address.
+    monkeypatch.setenv(plotly_bundle.BUNDLE_ADDRESS_ENV, address)
+    widget = plotly_bundle.figure_widget_class()(go.Figure(go.Scatter(x=[0, 1], y=[1, 2])))
+    assert isinstance(widget, go.FigureWidget)
+    assert json.dumps(address) in widget._esm and len(widget._esm) < 1000
+    assert widget.data[0].y == (1, 2)

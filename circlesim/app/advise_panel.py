@@ -24,6 +24,7 @@ from circlesim.advisor.answer import Advice
 from circlesim.advisor.inputs import Constraints, Targets
 from circlesim.app.comparison import table_html
 from circlesim.app.fields import CheckField, ChoiceField, NumberField, format_number
+from circlesim.app.plotly_bundle import figure_widget_class
 from circlesim.app.warnings_panel import alerts_html
 from circlesim.base.validation import InputError
 from circlesim.domain.plan import Plan
@@ -271,9 +272,7 @@ class AdvisePanel:
         fig.update_layout(title={"text": "Time to target against agent used",
                                  "font": {"size": 13}})
         if self.pareto is None:
-            import plotly.graph_objects as go
-
-            self.pareto = go.FigureWidget(fig)
+            self.pareto = figure_widget_class()(fig)
             self.pareto.add_class("cs-pareto")
             self.figure_box.children = (self.pareto,)
         else:  # the same widget, new curves

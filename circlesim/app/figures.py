@@ -35,8 +35,7 @@ def figure_widget(results: Sequence[Result], labels: Sequence[str], fio2_thresho
     fio2_threshold : float, fraction
     main : bool
     """
-    import plotly.graph_objects as go
-
+    from circlesim.app.plotly_bundle import figure_widget_class
     from circlesim.reports.band import add_band_slots
     from circlesim.reports.timeline import timeline_figure
 
@@ -53,7 +52,7 @@ def figure_widget(results: Sequence[Result], labels: Sequence[str], fio2_thresho
                           for r in range(1, len(panels) + 1)},
                          margin={"l": 40, "r": 4, "t": 30, "b": 36})
     figure.update_xaxes(range=(0.0, float(results[0].time_min[-1])))
-    widget = go.FigureWidget(figure)
+    widget = figure_widget_class()(figure)
     widget.add_class("cs-figure" if main else "cs-more-figure")
     widget._config = {**widget._config, "responsive": True, "displaylogo": False}
     return widget

@@ -18,6 +18,7 @@ from dataclasses import replace
 import ipywidgets as w
 import plotly.graph_objects as go
 
+from circlesim.app.plotly_bundle import figure_widget_class
 from circlesim.app.style import style_widget
 from circlesim.app.warnings_panel import alerts_html, caution_html, error_html
 from circlesim.base.validation import InputError
@@ -152,7 +153,7 @@ class OxygenSheet:
         self.error.value = ""
         figure = course_figure([course], height=480)
         if self.course is None:
-            self.course = go.FigureWidget(figure)
+            self.course = figure_widget_class()(figure)
             self._course_box.children = (self.course,)
         else:
             _replace(self.course, figure)
@@ -182,7 +183,7 @@ class OxygenSheet:
         self.status.value = ""
         figures = (map_figure(omap), safe_fraction_figure(table, threshold, height=380))
         if self.map is None:
-            self.map, self.curve = (go.FigureWidget(f) for f in figures)
+            self.map, self.curve = (figure_widget_class()(f) for f in figures)
             self._map_box.children = (self.map,)
             self._curve_box.children = (self.curve,)
         else:

@@ -1,10 +1,10 @@
 """Serving the planner with Voilà: one home for the server's options.
 
-``make demo`` and the browser test both start Voilà with :func:`voila_command`::
+``make demo`` and the browser test both start the server with :func:`voila_command`::
 
     python -m circlesim.app.serving notebooks/planner.ipynb --port 8866
 
-What the options do:
+which runs Voilà (:class:`PlannerServer`) with these options:
 
 * the kernel is started and the notebook run before the page asks for it (a pre-started kernel),
   and the next one only 20 s after a page took it, so starting it does not compete with
@@ -12,6 +12,9 @@ What the options do:
 * widget updates leave the server without waiting (:class:`NoDelayConnection`): Tornado's
   websockets leave Nagle's algorithm on, so a small message written right after a large one
   can wait for the browser's delayed acknowledgement (about 40 ms);
+* plotly's widget code is published as a static file that the page starts loading at once and
+  the figures import from there (:mod:`circlesim.app.plotly_bundle`), instead of each figure
+  bringing its own copy once the kernel has answered;
 * JupyterLab extensions the app does not use are not loaded: plotly's renderer for static
   figures (several megabytes; the app's figures are widgets that bring their own plotly.js)
   and the code-highlighting styles (Voilà shows no code).
@@ -23,13 +26,21 @@ import argparse
 import os
 import sys
 from collections.abc import Sequence
+from pathlib import Path
 
 from jupyter_server.services.kernels.connection.channels import ZMQChannelsWebsocketConnection
+from voila.app import Voila
 
-__all__ = ["UNUSED_EXTENSIONS", "NoDelayConnection", "main", "voila_command"]
+from circlesim.app.plotly_bundle import BUNDLE_ADDRESS_ENV, bundle_address, bundle_directory
+
+__all__ = ["UNUSED_EXTENSIONS", "NoDelayConnection", "PlannerServer", "main", "voila_command",
+           "voila_options"]
 
 #: JupyterLab extensions Voilà need not load for the planner.
 UNUSED_EXTENSIONS = ("jupyterlab-plotly", "jupyterlab_pygments")
+
+#: The planner's page template (Voilà's lab page that starts loading plotly early).
+PAGE_TEMPLATE_DIR = Path(__file__).parent / "page"
 
 
 class NoDelayConnection(ZMQChannelsWebsocketConnection):
@@ -41,25 +52,47 @@ class NoDelayConnection(ZMQChannelsWebsocketConnection):
         return super().connect()
 
 
-def voila_command(notebook: str, port: int) -> list[str]:
-    """The command line that serves ``notebook`` on 127.0.0.1:``port`` (no browser opened)."""
-    return [sys.executable, "-m", "voila", notebook, "--no-browser", f"--port={port}",
-            "--Voila.ip=127.0.0.1", "--Voila.port_retries=0",
+class PlannerServer(Voila):
+    """Voilà that publishes plotly's widget code and serves the planner's page template.
+
+    The kernels it starts find the code's address in :data:`~circlesim.app.plotly_bundle.
+    BUNDLE_ADDRESS_ENV`, so that the planner's figures import it instead of carrying it.
+    """
+
+    def setup_template_dirs(self) -> None:
+        super().setup_template_dirs()
+        address = bundle_address()
+        self.template_paths.insert(0, str(PAGE_TEMPLATE_DIR))
+        self.static_paths.append(str(bundle_directory()))
+        # the page renderer reads extra template resources from the configuration itself
+        resources = dict(self.config.VoilaConfiguration.get("resources", {}))
+        self.config.VoilaConfiguration.resources = {**resources,
+                                                    "circlesim_plotly_bundle": address}
+        os.environ[BUNDLE_ADDRESS_ENV] = address
+
+
+def voila_options(port: int) -> list[str]:
+    """Voilà's command-line options for serving the planner on 127.0.0.1:``port``."""
+    return ["--no-browser", f"--port={port}", "--Voila.ip=127.0.0.1", "--Voila.port_retries=0",
             "--Voila.kernel_websocket_connection_class="
             "circlesim.app.serving.NoDelayConnection",
             "--preheat_kernel=True", "--pool_size=1", "--VoilaKernelManager.fill_delay=20",
             *(f"--VoilaConfiguration.extension_denylist={name}" for name in UNUSED_EXTENSIONS)]
 
 
+def voila_command(notebook: str, port: int) -> list[str]:
+    """The command line that serves ``notebook`` on 127.0.0.1:``port`` (no browser opened)."""
+    return [sys.executable, "-m", "circlesim.app.serving", notebook, f"--port={port}"]
+
+
 def main(argv: Sequence[str] | None = None) -> None:
-    """Serve a notebook with Voilà (replaces this process)."""
+    """Serve a notebook with :class:`PlannerServer` on 127.0.0.1 (until interrupted)."""
     parser = argparse.ArgumentParser(prog="python -m circlesim.app.serving",
                                      description="Serve a notebook with Voilà on 127.0.0.1.")
     parser.add_argument("notebook")
     parser.add_argument("--port", type=int, default=8866)
     args = parser.parse_args(argv)
-    command = voila_command(args.notebook, args.port)
-    os.execv(command[0], command)
+    PlannerServer.launch_instance([args.notebook, *voila_options(args.port)])
 
 
 if __name__ == "__main__":
