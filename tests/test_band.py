@@ -153,3 +153,21 @@ def test_app_shows_band_and_measured_points(tmp_path):
     assert app.band is before
     app.band_panel.boxes["patients"].value = "200"
     assert app.band_panel.error.value == ""
+
+
+def test_band_in_chunks_on_a_pool_equals_one_batch():
+    from concurrent.futures import ThreadPoolExecutor
+
+    whole = run_band(SCENARIO, SMALL, parallel=False)
+    with ThreadPoolExecutor(3) as pool:
+        split = run_band(SCENARIO, SMALL, pool=pool, chunks=3)
+    assert split.n == whole.n
+    for key in BAND_SERIES:
+        for edge in ("low", "median", "high"):
+            np.testing.assert_array_equal(getattr(split, edge)[key], getattr(whole, edge)[key])
+    assert split.outcomes == whole.outcomes
+    assert split.share_below_fio2 == whole.share_below_fio2
+    with pytest.raises(cs.InputError, match="chunks"):
+        run_band(SCENARIO, SMALL, pool=pool, chunks=0)
+    with pytest.raises(cs.InputError, match="chunks"):
+        run_band(SCENARIO, SMALL, pool=pool, chunks=1.5)

@@ -1,13 +1,14 @@
 """The planner's band over similar patients: its settings and a background worker.
 
 The main curve is predicted on every change in the kernel's own thread (milliseconds). The
-band needs a batch of patients, so :class:`BandWorker` runs it on one background thread, at the
-lowest priority and without numba's worker threads, so that it only takes the processor time
-the browser drawing the main curve leaves over:
-each change hands it the newest scenario and returns at once; the worker always takes the
-newest request (older ones are dropped) and calls back only if no newer change arrived while
-it ran. The batch integration is compiled with ``nogil``, so the kernel keeps answering the
-page while the band is computed.
+band needs a batch of patients, so :class:`BandWorker` runs it in the background: one thread
+takes the requests and splits the patients between as many threads as the machine has cores
+(at most :data:`MAX_BAND_THREADS`), all at the lowest priority and without numba's worker
+threads, so that the band only takes the processor time the browser drawing the main curve
+leaves over. Each change hands the worker the newest scenario and returns at once; the worker
+always takes the newest request (older ones are dropped) and calls back only if no newer change
+arrived while it ran. The batch integration is compiled with ``nogil``, so the kernel keeps
+answering the page while the band is computed.
 
 Bad band settings (patients outside 20–2,000, a percentile outside 1–99) show an inline error
 naming the field; the band on screen stays the last good one.
@@ -21,6 +22,7 @@ import sys
 import threading
 import time
 from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import fields
 from pathlib import Path
 
@@ -30,8 +32,8 @@ from circlesim.base.validation import InputError
 from circlesim.population.band import Band, BandSettings, run_band
 from circlesim.scenario import Scenario
 
-__all__ = ["BandPanel", "BandWorker", "band_outcomes_html", "band_warnings_html",
-           "kernel_loop", "measured_points", "on_main_thread"]
+__all__ = ["MAX_BAND_THREADS", "BandPanel", "BandWorker", "band_outcomes_html",
+           "band_warnings_html", "kernel_loop", "measured_points", "on_main_thread"]
 
 
 def kernel_loop():
@@ -55,6 +57,9 @@ def on_main_thread(fn: Callable[[], None]) -> None:
         fn()
     else:
         loop.add_callback(fn)
+
+#: Most threads the band's patients are split between.
+MAX_BAND_THREADS = 4
 
 #: Text boxes of the panel: BandSettings field -> (label, unit).
 _FIELDS = {"patients": ("Similar patients", ""),
@@ -80,6 +85,9 @@ class BandWorker:
         self._request: tuple | None = None
         self.generation = 0
         self.busy = False
+        self._threads = max(1, min(MAX_BAND_THREADS, os.cpu_count() or 1))
+        self._pool = ThreadPoolExecutor(self._threads, thread_name_prefix="circlesim-band",
+                                        initializer=_yield_to_others)
         self._thread = threading.Thread(target=self._loop, name="circlesim-band", daemon=True)
         self._thread.start()
 
@@ -108,7 +116,8 @@ class BandWorker:
                 self.busy = True
             start = time.perf_counter()
             try:
-                band = run_band(scenario, settings, plan=plan, parallel=False)
+                band = run_band(scenario, settings, plan=plan, pool=self._pool,
+                                chunks=self._threads)
             except Exception as exc:  # shown inline, never a traceback
                 message = str(exc) if isinstance(exc, InputError) else (
                     f"the band could not be computed ({type(exc).__name__}: {exc})")

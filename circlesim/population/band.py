@@ -21,12 +21,14 @@ and the band has zero width; 1: the sourced spread).
 from __future__ import annotations
 
 import functools
+import itertools
 import math
+from concurrent.futures import Executor
 from dataclasses import dataclass, field
 
 import numpy as np
 
-from circlesim.base.validation import InputError, bounded, check_fields
+from circlesim.base.validation import InputError, Interval, bounded, check_fields, check_number
 from circlesim.domain.equipment import Circuit
 from circlesim.domain.patient import Patient
 from circlesim.domain.physiology import Factors, FitUncertainty
@@ -212,7 +214,8 @@ def _interval(duration_min: float) -> float:
 
 
 def run_band(scenario: Scenario, settings: BandSettings | None = None, *,
-             plan: Plan | None = None, parallel: bool = True) -> Band:
+             plan: Plan | None = None, parallel: bool = True, pool: Executor | None = None,
+             chunks: int = 2) -> Band:
     """Run ``scenario``'s plan over similar patients and summarise the spread.
 
     Parameters
@@ -223,7 +226,12 @@ def run_band(scenario: Scenario, settings: BandSettings | None = None, *,
         A dial plan to run instead of the scenario's (for a plan in target mode, the dials the
         controller chose for the entered patient).
     parallel : bool
-        Use numba's threads for the batch.
+        Use numba's threads for the batch (ignored with ``pool``).
+    pool : concurrent.futures.Executor, optional
+        Integrate the patients in ``chunks`` parts on this pool's threads, each part on one
+        thread (the integration releases the GIL), e.g. on a front end's low-priority threads.
+    chunks : int, 1–64
+        Parts for ``pool``.
 
     Raises
     ------
@@ -236,16 +244,32 @@ def run_band(scenario: Scenario, settings: BandSettings | None = None, *,
     if plan.has_targets:
         raise InputError("the band runs a dial plan: pass the target controller's plan for a "
                          "plan with end-tidal targets.")
+    check_number("run_band", "chunks", chunks, Interval(1, 64))
+    if not float(chunks).is_integer():
+        raise InputError(f"run_band: chunks must be a whole number; got {chunks:g}.")
     patients, circuits, basis = similar_patients(scenario, settings)
     threshold = scenario.report.fio2_threshold
-    batch = simulate_batch(patients, circuits, plan, vaporizer=scenario.vaporizer,
-                           absorber=scenario.absorber,
-                           output_interval_min=_interval(plan.duration_min),
-                           fio2_threshold=threshold, parallel=parallel)
-    t = batch.time_min
-    curves = {"end_tidal_agent_percent": batch.end_tidal_percent("agent"),
-              "brain_agent_percent": batch.brain_percent("agent"),
-              "fio2": batch.inspired[:, :, batch.gas_index("oxygen")]}
+
+    def integrate(members: range) -> _Curves:
+        batch = simulate_batch(patients[members.start:members.stop],
+                               circuits[members.start:members.stop], plan,
+                               vaporizer=scenario.vaporizer, absorber=scenario.absorber,
+                               output_interval_min=_interval(plan.duration_min),
+                               fio2_threshold=threshold, parallel=parallel and pool is None)
+        return _Curves(batch.time_min, {
+            "end_tidal_agent_percent": batch.end_tidal_percent("agent"),
+            "brain_agent_percent": batch.brain_percent("agent"),
+            "fio2": batch.inspired[:, :, batch.gas_index("oxygen")]},
+            batch.agent_delivered_ml[:, -1])
+
+    if pool is None:
+        parts = [integrate(range(len(patients)))]
+    else:
+        edges = np.linspace(0, len(patients), min(int(chunks), len(patients)) + 1).astype(int)
+        parts = list(pool.map(integrate, [range(a, b) for a, b in itertools.pairwise(edges)]))
+    t = parts[0].time_min
+    curves = {key: np.concatenate([part.curves[key] for part in parts]) for key in BAND_SERIES}
+    delivered = np.concatenate([part.delivered_ml for part in parts])
     q = (settings.low_percentile, 50.0, settings.high_percentile)
     low, median, high = {}, {}, {}
     for key, values in curves.items():
@@ -255,9 +279,8 @@ def run_band(scenario: Scenario, settings: BandSettings | None = None, *,
     reach = np.array([np.nan if (v := time_to_reach(t, et, target)) is None else v
                       for et in curves["end_tidal_agent_percent"]])
     lowest = curves["fio2"].min(axis=1)
-    delivered = batch.agent_delivered_ml[:, -1]
 
-    def edges(values: np.ndarray) -> tuple[float, float]:
+    def edges_of(values: np.ndarray) -> tuple[float, float]:
         finite = values[np.isfinite(values)]
         if finite.size == 0:
             return (math.nan, math.nan)
@@ -267,9 +290,18 @@ def run_band(scenario: Scenario, settings: BandSettings | None = None, *,
     return Band(
         settings=settings, basis=basis, n=len(patients), time_min=t, low=low, median=median,
         high=high,
-        outcomes={"time_to_target_min": edges(reach), "lowest_fio2": edges(lowest),
-                  "end_tidal_at_end": edges(curves["end_tidal_agent_percent"][:, -1]),
-                  "agent_delivered_ml": edges(delivered)},
+        outcomes={"time_to_target_min": edges_of(reach), "lowest_fio2": edges_of(lowest),
+                  "end_tidal_at_end": edges_of(curves["end_tidal_agent_percent"][:, -1]),
+                  "agent_delivered_ml": edges_of(delivered)},
         share_below_fio2=float(np.mean(lowest < threshold)),
         share_not_reaching_target=float(np.mean(~np.isfinite(reach))),
         fio2_threshold=threshold, target_percent=float(target))
+
+
+@dataclass(frozen=True)
+class _Curves:
+    """The band's series for some of the patients: ``curves[key]`` has shape (B, T)."""
+
+    time_min: np.ndarray
+    curves: dict[str, np.ndarray]
+    delivered_ml: np.ndarray
