@@ -449,6 +449,8 @@ def test_planner_in_browser(planner_url, browser_page, shots, tmp_path):
     bundles = page.evaluate("() => performance.getEntriesByType('resource')"
                             ".filter((r) => r.name.includes('/widgetbundle.js')).length")
     assert bundles == 1, bundles
+    # ... asked for by the page itself as it started (circlesim/app/page/index.html.j2)
+    assert page.locator("link[rel=modulepreload][href*='/widgetbundle.js']").count() == 1
     assert not errors, errors
     median = statistics.median(latencies)
     report = {"first_figure_s": round(first_figure_s, 2),
