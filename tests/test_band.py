@@ -171,3 +171,14 @@ def test_band_in_chunks_on_a_pool_equals_one_batch():
         run_band(SCENARIO, SMALL, pool=pool, chunks=0)
     with pytest.raises(cs.InputError, match="chunks"):
         run_band(SCENARIO, SMALL, pool=pool, chunks=1.5)
+
+
+def test_band_tolerance_changes_the_edges_by_under_1e_4_of_their_peak():
+    # The band integrates at BAND_RTOL (1e-5) instead of the engine's default 1e-6.
+    loose = run_band(SCENARIO, SMALL, parallel=False)
+    tight = run_band(SCENARIO, SMALL, parallel=False, rtol=1e-6)
+    for key in BAND_SERIES:
+        peak = np.max(tight.high[key])
+        for edge in ("low", "median", "high"):
+            difference = np.max(np.abs(getattr(loose, edge)[key] - getattr(tight, edge)[key]))
+            assert difference < 1e-4 * peak, (key, edge, difference / peak)
