@@ -2,7 +2,7 @@
 
 Each plotly ``FigureWidget`` carries its own copy of plotly's widget code (about 5 MB) in its
 state; the browser receives it over the kernel's websocket and runs it as a module for every
-figure. Running it costs about 1.4 s on a 2-core machine, and it can only start once the
+figure. Running it costs about 1–1.4 s on a 2-core machine, and it can only start once the
 widget's state has arrived, so it sits on the path to the first drawn figure.
 
 When the planner is served by :mod:`circlesim.app.serving`, the server publishes plotly's
@@ -48,7 +48,7 @@ def bundle_directory() -> Path:
 
 def bundle_address(static_prefix: str = "voila/static/") -> str:
     """Address of plotly's widget code relative to the base URL, versioned so that browsers
-    may keep it (e.g. ``"voila/static/widgetbundle.js?v=6.1.2"``)."""
+    may keep it (e.g. ``"voila/static/widgetbundle.js?v=7.1.0"``)."""
     import plotly
 
     return f"{static_prefix}{_BUNDLE_FILE}?v={plotly.__version__}"
