@@ -322,6 +322,17 @@ def test_planner_in_browser(planner_url, browser_page, shots, tmp_path):
     page.wait_for_timeout(400)
     (shots / LAPTOP_SCREENSHOT).parent.mkdir(parents=True, exist_ok=True)
     page.screenshot(path=str(shots / LAPTOP_SCREENSHOT))
+    # Every legend of both figures is drawn whole inside the window: plotly sizes a figure and
+    # measures its labels as it draws it, and a figure drawn before the page has placed it
+    # comes out too wide, its legends cut off at the edge.
+    labels = page.evaluate("""() => Array.from(document.querySelectorAll(
+        '.js-plotly-plot .traces > text')).map((t) => {
+            const r = t.getBoundingClientRect();
+            return {text: t.textContent, left: r.left, right: r.right, width: r.width};
+        })""")
+    assert len(labels) >= 10, labels
+    for label in labels:
+        assert label["width"] > 10 and label["right"] <= LAPTOP["width"], label
 
     # Raise the fresh gas flow of step 2 (the reduction at 8 min) from 0.35 to 1.5 L/min O2.
     o2 = ".cs-plan-table .cs-col-o2-l-min input"

@@ -30,12 +30,44 @@ BUNDLE_ADDRESS_ENV = "CIRCLESIM_PLOTLY_BUNDLE"
 _BUNDLE_FILE = "widgetbundle.js"
 
 # The figure's front-end code: import plotly's widget code from the published address (resolved
-# against the page's base URL, as the page's own early import is) and hand on its exports.
+# against the page's base URL, as the page's own preload is) and hand on its widget, drawing
+# each view only once its element is on the page. (Brought in its own copy, the code took a
+# second to start, by which time the element was always placed; imported from the page's
+# module map it starts at once, and plotly measures legend text as zero wide in an element not
+# yet placed.)
 _ESM_TEMPLATE = """
 const page = JSON.parse(document.getElementById("jupyter-config-data")?.textContent ?? "{}");
 const base = new URL(page.baseUrl ?? "/", document.baseURI);
-const bundle = await import(new URL(%s, base).href);
-export default bundle.default;
+const plotly = (await import(new URL(%s, base).href)).default;
+
+export default () => {
+  const widget = typeof plotly === "function" ? plotly() : plotly;
+  return {
+    ...widget,
+    render(context) {
+      let frame = 0;
+      let closed = false;
+      let cleanup = null;
+      const draw = () => {
+        if (closed) return;
+        if (!context.el.isConnected) {
+          frame = requestAnimationFrame(draw);
+          return;
+        }
+        Promise.resolve(widget.render(context)).then((done) => {
+          if (closed && typeof done === "function") done();
+          else cleanup = done;
+        });
+      };
+      draw();
+      return () => {
+        closed = true;
+        cancelAnimationFrame(frame);
+        if (typeof cleanup === "function") cleanup();
+      };
+    },
+  };
+};
 """
 
 
