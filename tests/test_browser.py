@@ -388,7 +388,6 @@ def test_planner_in_browser(planner_url, browser_page, shots, tmp_path):
     # (200 patients), measured in the page.
     latencies, all_panels_ms, band_ms = [], [], []
     curve = page.evaluate(_READ_CURVE, name)
-    high = page.evaluate(_READ_CURVE, BAND)
     for k in range(8):
         _watch(page)
         _enter(page, o2, 1, "0.45" if k % 2 == 0 else "0.35")
@@ -396,7 +395,7 @@ def test_planner_in_browser(planner_url, browser_page, shots, tmp_path):
         latencies.append(page.evaluate("() => window.__csDrawn - window.__csStart"))
         page.wait_for_function(_ALL_DRAWN, polling=50)
         all_panels_ms.append(page.evaluate(_ALL_DRAWN))
-        high, ms = _band_change(page)
+        _, ms = _band_change(page)
         band_ms.append(ms)
     # The band never holds up the next change: two changes in quick succession, the second
     # typed while the first one's band is being computed, both reach the figure, and the band
