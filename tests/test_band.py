@@ -161,16 +161,16 @@ def test_band_in_chunks_on_a_pool_equals_one_batch():
     whole = run_band(SCENARIO, SMALL, parallel=False)
     with ThreadPoolExecutor(3) as pool:
         split = run_band(SCENARIO, SMALL, pool=pool, chunks=3)
+        with pytest.raises(cs.InputError, match="chunks"):
+            run_band(SCENARIO, SMALL, pool=pool, chunks=0)
+        with pytest.raises(cs.InputError, match="chunks"):
+            run_band(SCENARIO, SMALL, pool=pool, chunks=1.5)
     assert split.n == whole.n
     for key in BAND_SERIES:
         for edge in ("low", "median", "high"):
             np.testing.assert_array_equal(getattr(split, edge)[key], getattr(whole, edge)[key])
     assert split.outcomes == whole.outcomes
     assert split.share_below_fio2 == whole.share_below_fio2
-    with pytest.raises(cs.InputError, match="chunks"):
-        run_band(SCENARIO, SMALL, pool=pool, chunks=0)
-    with pytest.raises(cs.InputError, match="chunks"):
-        run_band(SCENARIO, SMALL, pool=pool, chunks=1.5)
 
 
 def test_band_tolerance_changes_the_edges_by_under_1e_4_of_their_peak():

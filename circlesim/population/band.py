@@ -272,11 +272,10 @@ def run_band(scenario: Scenario, settings: BandSettings | None = None, *,
             "fio2": batch.inspired[:, :, batch.gas_index("oxygen")]},
             batch.agent_delivered_ml[:, -1])
 
-    if pool is None:
-        parts = [integrate(range(len(patients)))]
-    else:
-        edges = np.linspace(0, len(patients), min(int(chunks), len(patients)) + 1).astype(int)
-        parts = list(pool.map(integrate, [range(a, b) for a, b in itertools.pairwise(edges)]))
+    parts_of = 1 if pool is None else min(int(chunks), len(patients))
+    cuts = np.linspace(0, len(patients), parts_of + 1).astype(int)
+    parts = list((map if pool is None else pool.map)(
+        integrate, [range(a, b) for a, b in itertools.pairwise(cuts)]))
     t = parts[0].time_min
     curves = {key: np.concatenate([part.curves[key] for part in parts]) for key in BAND_SERIES}
     delivered = np.concatenate([part.delivered_ml for part in parts])
@@ -290,7 +289,7 @@ def run_band(scenario: Scenario, settings: BandSettings | None = None, *,
                       for et in curves["end_tidal_agent_percent"]])
     lowest = curves["fio2"].min(axis=1)
 
-    def edges_of(values: np.ndarray) -> tuple[float, float]:
+    def edges(values: np.ndarray) -> tuple[float, float]:
         finite = values[np.isfinite(values)]
         if finite.size == 0:
             return (math.nan, math.nan)
@@ -300,9 +299,9 @@ def run_band(scenario: Scenario, settings: BandSettings | None = None, *,
     return Band(
         settings=settings, basis=basis, n=len(patients), time_min=t, low=low, median=median,
         high=high,
-        outcomes={"time_to_target_min": edges_of(reach), "lowest_fio2": edges_of(lowest),
-                  "end_tidal_at_end": edges_of(curves["end_tidal_agent_percent"][:, -1]),
-                  "agent_delivered_ml": edges_of(delivered)},
+        outcomes={"time_to_target_min": edges(reach), "lowest_fio2": edges(lowest),
+                  "end_tidal_at_end": edges(curves["end_tidal_agent_percent"][:, -1]),
+                  "agent_delivered_ml": edges(delivered)},
         share_below_fio2=float(np.mean(lowest < threshold)),
         share_not_reaching_target=float(np.mean(~np.isfinite(reach))),
         fio2_threshold=threshold, target_percent=float(target))
