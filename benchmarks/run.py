@@ -87,6 +87,30 @@ def median_time(fn: Callable[[], object], repeats: int, warm_up: int = 5
     return statistics.median(wall), statistics.median(cpu), out
 
 
+def interleaved_medians(fns: list[Callable[[], object]], repeats: int, warm_up: int = 5
+                        ) -> list[tuple[float, float, object]]:
+    """:func:`median_time` for several functions, called in turn within each repeat.
+
+    The machine's speed drifts (other tenants, clock changes) over a benchmark; calling the
+    functions alternately exposes each to the same drift, so their ratio holds still where
+    back-to-back series can differ by half.
+    """
+    for _ in range(warm_up):
+        for fn in fns:
+            fn()
+    wall: list[list[float]] = [[] for _ in fns]
+    cpu: list[list[float]] = [[] for _ in fns]
+    last: list[object] = [None] * len(fns)
+    for _ in range(repeats):
+        for k, fn in enumerate(fns):
+            t, c = time.perf_counter(), time.process_time()
+            last[k] = fn()
+            wall[k].append(time.perf_counter() - t)
+            cpu[k].append(time.process_time() - c)
+    return [(statistics.median(w), statistics.median(c), out)
+            for w, c, out in zip(wall, cpu, last, strict=True)]
+
+
 def timed(fn: Callable[[], object]) -> tuple[float, float, object]:
     """Wall and CPU time (s; CPU of this process, its threads and finished child processes)
     of one call, and its result."""
@@ -126,9 +150,8 @@ def bench_single(repeats: int) -> list[tuple]:
         return integrate(inputs.y0, inputs.params, inputs.seg_times, inputs.jumps, inputs.lay,
                          t_out, inputs.atol, 1e-6, 5.0, MAX_STEPS)
 
-    t_sim, c_sim, _ = median_time(
-        lambda: cs.simulate(patient, circuit, plan, vaporizer=vaporizer), repeats)
-    t_bare, c_bare, (ours, _, _) = median_time(bare, 4 * repeats)
+    (t_sim, c_sim, _), (t_bare, c_bare, (ours, _, _)) = interleaved_medians(
+        [lambda: cs.simulate(patient, circuit, plan, vaporizer=vaporizer), bare], 2 * repeats)
     t_ref, c_ref, (ref, _, _) = median_time(lambda: solve_states(
         inputs, t_out, method=REFERENCE[0], rtol=REFERENCE[1]), max(1, repeats // 20),
         warm_up=0)

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass, replace
+from functools import lru_cache
 
 import numpy as np
 
@@ -156,6 +157,15 @@ def default_rules(fio2_threshold: float = 0.30, inspired_co2_kpa: float = 0.5,
     check_number("default_rules", "fresh_o2_minimum", fresh_minimum, Interval(0.21, 1.0))
     check_number("default_rules", "fresh_gas_margin_l_min", fresh_gas_margin_l_min,
                  Interval(-1.0, 5.0, "L/min"))
+    return _standard_rules(float(fio2_threshold), float(inspired_co2_kpa), float(fresh_minimum),
+                           float(fresh_gas_margin_l_min))
+
+
+@lru_cache(maxsize=16)
+def _standard_rules(fio2_threshold: float, inspired_co2_kpa: float, fresh_minimum: float,
+                    fresh_gas_margin_l_min: float) -> tuple[AlertRule, ...]:
+    """The rules of :func:`default_rules` for checked thresholds, made once per set of
+    thresholds: every run asks for them, and frozen rules can be shared."""
     return (
         AlertRule("fio2_low", "inspired_o2_fraction", "below", fio2_threshold, "",
                   "Inspired O2 fraction falls below {threshold:.2f} (lowest {extreme:.3f}). "

@@ -53,10 +53,9 @@ H_MAX_MIN = 5.0
 @njit(cache=True, error_model="numpy")
 def _auxiliary_member(states, params, seg_index, lay, out):
     """The model's auxiliary outputs of one member, written into ``out`` (no temporaries)."""
-    dy = np.empty(states.shape[1])
     work = np.empty(m.work_size(lay))
     for i in range(states.shape[0]):
-        m.evaluate(states[i], params[seg_index[i]], lay, dy, out[i], work)
+        m.outputs(states[i], params[seg_index[i]], lay, out[i], work)
 
 
 @njit(cache=True, parallel=True, error_model="numpy", nogil=True)

@@ -249,6 +249,24 @@ def evaluate(y, p, lay, dy, aux, work):
     work : ndarray, shape (>= work_size(lay),)
         Scratch space (so that no call allocates memory).
     """
+    _model(y, p, lay, dy, aux, work, True)
+
+
+@njit(cache=True, error_model="numpy")
+def outputs(y, p, lay, aux, work):
+    """The auxiliary outputs ``aux`` of the state ``y`` without its time derivative.
+
+    The same equations as :func:`evaluate` (the compiler drops the parts that only feed the
+    derivatives: tissue exchange, alveolar balance, the accumulators), about 40 % less work
+    per call. Parameters as for :func:`evaluate`.
+    """
+    _model(y, p, lay, aux, aux, work, False)  # ``dy`` is not touched without derivatives
+
+
+@njit(error_model="numpy", inline="always")
+def _model(y, p, lay, dy, aux, work, with_derivatives):
+    """The model's equations: :func:`evaluate` (``with_derivatives`` True) and
+    :func:`outputs` (False). Inlined into both, so the flag is a compile-time constant."""
     G = lay[0]
     S = lay[1]
     C = lay[2]
@@ -330,28 +348,29 @@ def evaluate(y, p, lay, dy, aux, work):
     # alveoli at constant volume: outflow = inflow − net uptake
     alv_in = inspired - dead
     alv_out = alv_in - total_uptake
-    alv_amount = k_body * p[P_LUNG_VOLUME]
-    for g in range(G):
-        dy[y_alv + g] = (alv_in * fi[g] - alv_out * fa_alv[g] - uptake[g]) / alv_amount
+    if with_derivatives:
+        alv_amount = k_body * p[P_LUNG_VOLUME]
+        for g in range(G):
+            dy[y_alv + g] = (alv_in * fi[g] - alv_out * fa_alv[g] - uptake[g]) / alv_amount
 
-    # tissues: flow-limited exchange with arterial blood, plus intertissue diffusion
-    for c in range(C):
-        q = p[off_flow + c]
-        base = y_tis + c * S
-        for s in range(S):
-            exchange = q * p[off_lambda + s] * k_body * (f_arterial[s] - y[base + s])
-            dy[base + s] = exchange
-    for link in range(L):
-        c_from = lay[links + link]
-        c_to = lay[links + L + link]
-        for s in range(S):
-            flux = p[off_links + link * S + s] * (y[y_tis + c_from * S + s]
-                                                  - y[y_tis + c_to * S + s])
-            dy[y_tis + c_from * S + s] -= flux
-            dy[y_tis + c_to * S + s] += flux
-    for c in range(C):
-        for s in range(S):
-            dy[y_tis + c * S + s] /= p[off_capacity + c * S + s]
+        # tissues: flow-limited exchange with arterial blood, plus intertissue diffusion
+        for c in range(C):
+            q = p[off_flow + c]
+            base = y_tis + c * S
+            for s in range(S):
+                exchange = q * p[off_lambda + s] * k_body * (f_arterial[s] - y[base + s])
+                dy[base + s] = exchange
+        for link in range(L):
+            c_from = lay[links + link]
+            c_to = lay[links + L + link]
+            for s in range(S):
+                flux = p[off_links + link * S + s] * (y[y_tis + c_from * S + s]
+                                                      - y[y_tis + c_to * S + s])
+                dy[y_tis + c_from * S + s] -= flux
+                dy[y_tis + c_to * S + s] += flux
+        for c in range(C):
+            for s in range(S):
+                dy[y_tis + c * S + s] /= p[off_capacity + c * S + s]
 
     # exhaled gas: dead-space gas at inspired composition, then alveolar gas
     exhaled = work[3 * G + 2 * S:4 * G + 2 * S]
@@ -414,13 +433,19 @@ def evaluate(y, p, lay, dy, aux, work):
 
     vent_total = 0.0
     for g in range(G):
+        vented_g = vented_exhaled * to_limb[g] + vent_circuit * fc[g]
+        vent_total += vented_g
+        aux[g] = fi[g]
+        aux[G + g] = uptake[g]
+        aux[2 * G + g] = vented_g
+        aux[3 * G + g] = p[off_fresh + g]
+        if not with_derivatives:
+            continue
         air = 0.0
         if g == O2:
             air = AIR_O2
         elif g == N2:
             air = AIR_N2
-        vented_g = vented_exhaled * to_limb[g] + vent_circuit * fc[g]
-        vent_total += vented_g
         dy[g] = (p[off_fresh + g] + (1.0 - vented_exhaled) * to_limb[g] - draw * fc[g]
                  - leak * fc[g] - vent_circuit * fc[g] + entrained * air)
         delivered = p[off_fresh + g]
@@ -433,12 +458,9 @@ def evaluate(y, p, lay, dy, aux, work):
         dy[y_acc + ACC_SAMPLED * G + g] = (sample * f_ins * fi[g]
                                            + sample * (1.0 - f_ins) * exhaled_share[g])
         dy[y_acc + ACC_UPTAKE * G + g] = uptake[g]
-        aux[g] = fi[g]
-        aux[G + g] = uptake[g]
-        aux[2 * G + g] = vented_g
-        aux[3 * G + g] = p[off_fresh + g]
-    dy[CO2] -= absorbed
-    dy[y_abs] = absorbed
+    if with_derivatives:
+        dy[CO2] -= absorbed
+        dy[y_abs] = absorbed
     for s in range(S):
         aux[4 * G + s] = f_arterial[s]
         aux[4 * G + S + s] = f_venous[s]
@@ -472,10 +494,9 @@ def auxiliary_series(states, params, seg_index, lay):
     """
     n_t = states.shape[0]
     out = np.empty((n_t, lay[11]))
-    dy = np.empty(states.shape[1])
     work = np.empty(work_size(lay))
     for i in range(n_t):
-        evaluate(states[i], params[seg_index[i]], lay, dy, out[i], work)
+        outputs(states[i], params[seg_index[i]], lay, out[i], work)
     return out
 
 

@@ -110,8 +110,8 @@ class Result:
     time_min : ndarray, shape (T,)
         Minutes from the start of the plan.
     gases, soluble_gases, tissue_names, tissue_labels : tuple of str
-    inspired, end_tidal, circuit_gas : ndarray, shape (T, G)
-        Dry-gas fractions: inspired gas, alveolar (end-tidal) gas, well-mixed circuit gas.
+    inspired, end_tidal : ndarray, shape (T, G)
+        Dry-gas fractions: inspired gas, alveolar (end-tidal) gas.
     arterial, mixed_venous : ndarray, shape (T, S)
         Partial pressures of the soluble gases as dry-gas-fraction equivalents.
     tissue : ndarray, shape (T, C, S)
@@ -131,10 +131,14 @@ class Result:
     cumulative : dict of str to ndarray, shape (T, G)
         Amounts since the start, L STPD: "delivered", "entrained", "vented", "leaked",
         "sampled", "uptake"; and "absorbed" (CO2 only, others zero).
-    held_in_circuit, held_in_patient : ndarray, shape (T, G)
-        Amounts in the circuit and in the patient's lungs and tissues, L STPD.
+    held_in_circuit : ndarray, shape (T, G)
+        Amounts in the circuit, L STPD.
     held_at_start : ndarray, shape (G,)
         Amount in circuit and patient at the start, before any injection at time 0, L STPD.
+    lung_gas_stpd : float
+        Gas in the lungs at FRC, L STPD.
+    tissue_capacity_stpd : ndarray, shape (C, S)
+        Gas each tissue group holds per unit dry-gas-fraction equivalent, L STPD.
     states : ndarray, shape (T, n_state)
         Raw model states (see :mod:`circlesim.engine.model`).
     final_state : ndarray
@@ -161,7 +165,6 @@ class Result:
     tissue_labels: tuple[str, ...]
     inspired: np.ndarray
     end_tidal: np.ndarray
-    circuit_gas: np.ndarray
     arterial: np.ndarray
     mixed_venous: np.ndarray
     tissue: np.ndarray
@@ -180,8 +183,9 @@ class Result:
     absorbent_used_fraction: np.ndarray
     cumulative: dict[str, np.ndarray]
     held_in_circuit: np.ndarray
-    held_in_patient: np.ndarray
     held_at_start: np.ndarray
+    lung_gas_stpd: float
+    tissue_capacity_stpd: np.ndarray
     states: np.ndarray
     final_state: np.ndarray
     k_circuit: float
@@ -196,6 +200,20 @@ class Result:
     plan: Plan
     alerts: tuple[Alert, ...] = field(default=())
     control: TargetTrace | None = None
+
+    # ---- derived on first use (most callers never read them) ------------------------------
+    @cached_property
+    def circuit_gas(self) -> np.ndarray:
+        """Dry-gas fractions of the well-mixed circuit gas, shape (T, G)."""
+        return self.held_in_circuit / self.circuit_amount_stpd[:, None]
+
+    @cached_property
+    def held_in_patient(self) -> np.ndarray:
+        """Amounts in the patient's lungs and tissues, L STPD, shape (T, G)."""
+        held = self.end_tidal * self.lung_gas_stpd
+        held[:, -len(self.soluble_gases):] += np.einsum("tcs,cs->ts", self.tissue,
+                                                        self.tissue_capacity_stpd)
+        return held
 
     # ---- names and conversions -----------------------------------------------------------
     @property
