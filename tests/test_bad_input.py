@@ -8,10 +8,11 @@ test_public_functions.py).
 import math
 from dataclasses import fields
 
+import numpy as np
 import pytest
 
 import circlesim as cs
-from circlesim.base.validation import InputError, Interval, OneOf
+from circlesim.base.validation import InputError, Interval, OneOf, check_whole_number
 from circlesim.domain.physiology import Factors
 from circlesim.scenario import ReportSettings, scenario_from_toml
 
@@ -157,3 +158,19 @@ def test_good_toml_round_trips(tmp_path):
     assert again.patient == scenario.patient
     with pytest.raises(FileExistsError):
         cs.scenario.save_scenario(scenario, path)
+
+
+@pytest.mark.parametrize("value", [3, 3.0, np.int64(3), np.float64(3.0)])
+def test_whole_numbers_pass_as_int(value):
+    checked = check_whole_number("chunks", value, Interval(1, 64))
+    assert checked == 3 and type(checked) is int
+
+
+@pytest.mark.parametrize("value, shown", [(2.5, "2.5"), (True, "True"), ("3", "'3'"),
+                                          (math.nan, "nan"), (0, "0"), (65, "65")])
+def test_whole_number_check_names_field_value_and_range(value, shown):
+    with pytest.raises(InputError, match=rf"^chunks must be a whole number from 1 to 64; "
+                                         rf"got {shown}\.$"):
+        check_whole_number("chunks", value, Interval(1, 64))
+    with pytest.raises(InputError, match=r"a whole number of at least 1;"):
+        check_whole_number("patients", -1, Interval(1, math.inf))

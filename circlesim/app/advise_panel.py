@@ -26,7 +26,7 @@ from circlesim.app.comparison import table_html
 from circlesim.app.fields import CheckField, ChoiceField, NumberField, format_number
 from circlesim.app.plotly_bundle import figure_widget_class
 from circlesim.app.warnings_panel import alerts_html
-from circlesim.base.validation import InputError
+from circlesim.base.validation import InputError, Interval, check_whole_number
 from circlesim.domain.plan import Plan
 from circlesim.engine.simulate import SimulationError
 from circlesim.scenario import Scenario
@@ -167,16 +167,14 @@ class AdvisePanel:
         InputError
             Naming the box (in the panel's words), the value and the allowed range.
         """
-        changes = self.changes.value
-        if changes != round(changes):
-            raise InputError(f"Constraints.max_changes_per_hour must be a whole number from 0 "
-                             f"to 30; got {changes:g}.")
+        changes = check_whole_number("Constraints.max_changes_per_hour", self.changes.value,
+                                     Interval(0, 30))
         targets = Targets(end_tidal_mac=self.target.value, reach_within_min=self.within.value,
                           duration_min=scenario.plan.duration_min)
         constraints = Constraints(
             min_fio2=self.min_fio2.value, min_fgf_l_min=self.min_fgf.value,
             max_fgf_l_min=self.max_fgf.value, max_dial_percent=self.max_dial.value,
-            max_changes_per_hour=int(changes), follow_labelling=self.labelling.value)
+            max_changes_per_hour=changes, follow_labelling=self.labelling.value)
         return targets, constraints, str(self.objective.value)
 
     def run(self) -> Advice | None:

@@ -23,7 +23,7 @@ from collections.abc import Callable, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from typing import Any, NamedTuple
 
-from circlesim.base.validation import InputError
+from circlesim.base.validation import InputError, Interval, check_whole_number
 
 __all__ = ["ChunkRun", "SchedulerUnreachableError", "check_scheduler_address", "local_workers",
            "map_chunks"]
@@ -187,9 +187,8 @@ def map_chunks(func: Callable[[Any, bool], Any], items: Sequence, *,
         The results and a description of where they ran.
     """
     items = list(items)
-    if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int)
-                                or not 1 <= workers <= 1024):
-        raise InputError(f"workers must be a whole number from 1 to 1024; got {workers!r}.")
+    if workers is not None:
+        workers = check_whole_number("workers", workers, Interval(1, 1024))
     if scheduler is not None:
         if hasattr(scheduler, "submit") and hasattr(scheduler, "gather"):
             return ChunkRun(_run_dask(scheduler, func, items, progress),

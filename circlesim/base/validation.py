@@ -19,6 +19,8 @@ from collections.abc import Iterable
 from dataclasses import dataclass, fields
 from typing import Any
 
+import numpy as np
+
 __all__ = [
     "InputError",
     "Interval",
@@ -28,6 +30,7 @@ __all__ = [
     "check_fields",
     "check_keys",
     "check_number",
+    "check_whole_number",
     "optional_bounded",
 ]
 
@@ -121,8 +124,6 @@ def check_number(owner: str, name: str, value: Any, interval: Interval) -> float
         return None
     if isinstance(value, bool) or not isinstance(value, int | float):
         try:
-            import numpy as np
-
             if isinstance(value, np.generic) and np.isreal(value):
                 value = float(value)
             else:
@@ -135,6 +136,28 @@ def check_number(owner: str, name: str, value: Any, interval: Interval) -> float
     if not math.isfinite(value) or not interval.contains(value):
         raise InputError(f"{owner}.{name} must be {interval.describe()}; got {value:g}.")
     return value
+
+
+def check_whole_number(name: str, value: Any, interval: Interval) -> int:
+    """Check that ``value`` is a whole number within ``interval`` (closed, its bounds whole
+    numbers; ``high`` may be infinite) and return it as an int.
+
+    Integers (Python or numpy) and floats without a fractional part pass; booleans, text and
+    non-finite numbers do not.
+
+    Raises
+    ------
+    InputError
+        ``"{name} must be a whole number from 1 to 64; got 2.5."``
+    """
+    whole = not isinstance(value, bool) and (isinstance(value, int | np.integer) or (
+        isinstance(value, float | np.floating) and float(value).is_integer()))
+    if not whole or not interval.contains(float(value)):
+        shown = f"{value:g}" if isinstance(value, float) else repr(value)
+        wording = (f"of at least {interval.low:.0f}" if math.isinf(interval.high)
+                   else f"from {interval.low:.0f} to {interval.high:.0f}")
+        raise InputError(f"{name} must be a whole number {wording}; got {shown}.")
+    return int(value)
 
 
 def check_choice(owner: str, name: str, value: Any, choices: Iterable[str]) -> str:

@@ -24,7 +24,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 from scipy.optimize import minimize
 
-from circlesim.base.validation import InputError
+from circlesim.base.validation import InputError, Interval, check_whole_number
 from circlesim.cases.check import CHECK_INTERVAL_MIN
 from circlesim.cases.columns import MeasuredSeries
 from circlesim.cases.priors import PARAMETERS, Prior, noise_sd, prior_for
@@ -269,9 +269,7 @@ def fit_case(record: CaseRecord, *, until_min: float | None = None,
         If the optimiser fails.
     """
     where = str(record.path or record.name)
-    if not 5 <= max_iterations <= 1000:
-        raise InputError(f"max_iterations must be a whole number from 5 to 1000; got "
-                         f"{max_iterations!r}.")
+    max_iterations = check_whole_number("max_iterations", max_iterations, Interval(5, 1000))
     data = record
     if until_min is not None:
         if not 0.0 < until_min <= record.plan.duration_min:

@@ -26,7 +26,13 @@ from typing import Any
 import numpy as np
 
 from circlesim.base.files import read_toml
-from circlesim.base.validation import InputError, Interval, check_keys, check_number
+from circlesim.base.validation import (
+    InputError,
+    Interval,
+    check_keys,
+    check_number,
+    check_whole_number,
+)
 from circlesim.cases.columns import (
     SETTINGS,
     TIME,
@@ -321,10 +327,8 @@ def record_from_frame(name: str, scenario_data: dict[str, Any], header: list[str
     except (TypeError, ValueError):
         raise InputError(f"{name}: [record] sampling_delay_s and rise_time_s must be "
                          "numbers.") from None
-    patients = record.get("patients", 1)
-    if not isinstance(patients, int) or patients < 1:
-        raise InputError(f"{name}: [record] patients must be a whole number of at least 1; "
-                         f"got {patients!r}.")
+    patients = check_whole_number(f"{name}: [record] patients", record.get("patients", 1),
+                                  Interval(1, math.inf))
     for key in ("source", "provenance", "note"):
         if not isinstance(record.get(key, ""), str):
             raise InputError(f"{name}: [record] {key} must be text; got {record[key]!r}.")

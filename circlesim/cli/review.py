@@ -16,7 +16,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from circlesim.base.validation import InputError
+from circlesim.base.validation import InputError, Interval, check_whole_number
 from circlesim.cli.common import (
     add_parallel_options,
     add_report_options,
@@ -72,8 +72,7 @@ def _interval(row: pd.Series, name: str) -> str:
 
 
 def run(args: argparse.Namespace) -> int:
-    if not 0 <= args.draws <= 500:
-        raise InputError(f"--draws must be a whole number from 0 to 500; got {args.draws}.")
+    check_whole_number("--draws", args.draws, Interval(0, 500))
     rule = load_rule(args.rule)
     prices = load_prices(args.prices) if args.prices is not None else None
     print(caution_banner())

@@ -24,11 +24,17 @@ import functools
 import itertools
 import math
 from concurrent.futures import Executor
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields
 
 import numpy as np
 
-from circlesim.base.validation import InputError, Interval, bounded, check_fields, check_number
+from circlesim.base.validation import (
+    InputError,
+    Interval,
+    bounded,
+    check_fields,
+    check_whole_number,
+)
 from circlesim.domain.equipment import Circuit
 from circlesim.domain.patient import Patient
 from circlesim.domain.physiology import Factors, FitUncertainty
@@ -81,11 +87,10 @@ class BandSettings:
 
     def __post_init__(self) -> None:
         check_fields(self)
-        for name in ("patients", "seed"):
-            value = getattr(self, name)
-            if not float(value).is_integer():
-                raise InputError(f"BandSettings.{name} must be a whole number; got {value:g}.")
-            object.__setattr__(self, name, int(value))
+        for f in fields(self):
+            if f.name in ("patients", "seed"):
+                object.__setattr__(self, f.name, check_whole_number(
+                    f"BandSettings.{f.name}", getattr(self, f.name), f.metadata["constraint"]))
         if not self.low_percentile < self.high_percentile:
             raise InputError(f"BandSettings.high_percentile must be above low_percentile "
                              f"({self.low_percentile:g} %); got {self.high_percentile:g}.")
@@ -253,9 +258,7 @@ def run_band(scenario: Scenario, settings: BandSettings | None = None, *,
     if plan.has_targets:
         raise InputError("the band runs a dial plan: pass the target controller's plan for a "
                          "plan with end-tidal targets.")
-    check_number("run_band", "chunks", chunks, Interval(1, 64))
-    if not float(chunks).is_integer():
-        raise InputError(f"run_band: chunks must be a whole number; got {chunks:g}.")
+    chunks = check_whole_number("run_band.chunks", chunks, Interval(1, 64))
     patients, circuits, basis = similar_patients(scenario, settings)
     threshold = scenario.report.fio2_threshold
 

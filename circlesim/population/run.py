@@ -29,7 +29,13 @@ import numpy as np
 
 from circlesim.base.distributed import map_chunks
 from circlesim.base.units import vapour_l_stpd_to_grams
-from circlesim.base.validation import InputError, Interval, check_choice, check_number
+from circlesim.base.validation import (
+    InputError,
+    Interval,
+    check_choice,
+    check_number,
+    check_whole_number,
+)
 from circlesim.domain.patient import Patient
 from circlesim.engine.batch import simulate_batch
 from circlesim.engine.simulate import output_times
@@ -208,10 +214,7 @@ def compare_populations(scenarios: Sequence[Scenario], patients: VirtualPatients
     check_number("population", "rtol", rtol, Interval(1e-12, 1e-2))
     horizon = check_horizon(gwp_horizon)
     basis = check_choice("population", "target_basis", target_basis, ("total", "agent"))
-    if isinstance(chunk_size, bool) or not isinstance(chunk_size, int) or not \
-            1 <= chunk_size <= 100_000:
-        raise InputError(f"chunk_size must be a whole number from 1 to 100000; got "
-                         f"{chunk_size!r}.")
+    chunk_size = check_whole_number("chunk_size", chunk_size, Interval(1, 100_000))
     labels = _labels(scenarios, labels)
     members = people.patients
     tasks = [_Task(i, s, members[start:start + chunk_size], series, float(output_interval_min),

@@ -26,7 +26,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from circlesim.base.validation import InputError, Interval, check_keys
+from circlesim.base.validation import InputError, Interval, check_keys, check_whole_number
 from circlesim.domain.patient import Patient
 from circlesim.population.distributions import (
     Distribution,
@@ -277,11 +277,7 @@ def _make_patient(spec: PopulationSpec, who: str, sex: str, age: float, height: 
 
 def check_patient_count(n: Any, name: str = "patients") -> int:
     """Return ``n`` as an int if it is a whole number from 1 to :data:`MAX_PATIENTS`."""
-    ok = (isinstance(n, int | np.integer) and not isinstance(n, bool)) or (
-        isinstance(n, float) and n.is_integer())
-    if not ok or not 1 <= n <= MAX_PATIENTS:
-        raise InputError(f"{name} must be a whole number from 1 to {MAX_PATIENTS}; got {n!r}.")
-    return int(n)
+    return check_whole_number(name, n, Interval(1, MAX_PATIENTS))
 
 
 def _check_seed(seed: Any) -> int:
