@@ -80,8 +80,11 @@ def _flow_while_agent(r: Result) -> np.ndarray:
 
 def _mac_hours_at_1_to_2(r: Result) -> np.ndarray:
     flow = r.flowmeter_total_l_min
+    in_range = (flow >= 1.0) & (flow < 2.0)
+    if not in_range.any():
+        return np.zeros(flow.size)
     mac = r.end_tidal[:, r.gas_index("agent")] * 100.0 / r.mac_percent
-    rate = np.where((flow >= 1.0) & (flow < 2.0), mac, 0.0) / 60.0
+    rate = np.where(in_range, mac, 0.0) / 60.0
     dt = np.diff(r.time_min, prepend=r.time_min[0])
     return np.cumsum(rate * dt)
 

@@ -163,7 +163,7 @@ def work_size(lay: np.ndarray) -> int:
 
 def state_slices(lay: np.ndarray) -> dict[str, slice]:
     """Named slices into the state vector."""
-    G, S, C = int(lay[0]), int(lay[1]), int(lay[2])
+    G, S, C = lay[:3].tolist()
     tissue = 2 * G
     absorbent = tissue + C * S
     acc = absorbent + 1
@@ -180,7 +180,7 @@ def state_slices(lay: np.ndarray) -> dict[str, slice]:
 
 def aux_slices(lay: np.ndarray) -> dict[str, slice]:
     """Named slices into the auxiliary-output vector."""
-    G, S = int(lay[0]), int(lay[1])
+    G, S = lay[:2].tolist()
     return {
         "inspired": slice(0, G),
         "uptake": slice(G, 2 * G),
@@ -194,8 +194,7 @@ def aux_slices(lay: np.ndarray) -> dict[str, slice]:
 
 def parameter_slices(lay: np.ndarray) -> dict[str, slice]:
     """Named slices into the parameter vector."""
-    G, S, C, L = (int(v) for v in lay[:4])
-    off_fresh, off_lambda, off_flow, off_capacity, off_links = (int(v) for v in lay[4:9])
+    G, S, C, L, off_fresh, off_lambda, off_flow, off_capacity, off_links = lay[:9].tolist()
     return {
         "fresh": slice(off_fresh, off_fresh + G),
         "blood_gas": slice(off_lambda, off_lambda + S),

@@ -297,7 +297,8 @@ class Result:
     @property
     def valve_closed(self) -> np.ndarray:
         """Whether the pressure-limiting valve is closed at each output time, shape (T,)."""
-        return self.segment_values("valve") == "closed"
+        segments, index = self._segment_lookup
+        return np.array([s.valve == "closed" for s in segments])[index]
 
     @property
     def fresh_gas_l_min(self) -> np.ndarray:
