@@ -45,6 +45,7 @@ import numpy as np
 
 import circlesim as cs
 from circlesim.base.distributed import local_workers
+from circlesim.engine import layout
 from circlesim.engine import model as m
 from circlesim.engine.assembly import assemble
 from circlesim.engine.batch import simulate_batch
@@ -130,9 +131,9 @@ def relative_difference(states: np.ndarray, reference: np.ndarray, inputs,
                   len(inputs.params) - 1).astype(np.int64)
 
     def series(s):
-        fio2 = m.auxiliary_series(s, inputs.params, seg, lay)[:, m.aux_slices(lay)[
-            "inspired"]][:, m.O2]
-        return np.column_stack([s[:, m.state_slices(lay)["alveolar"]], fio2])
+        fio2 = m.auxiliary_series(s, inputs.params, seg, lay)[:, layout.aux_slices(lay)[
+            "inspired"]][:, layout.O2]
+        return np.column_stack([s[:, layout.state_slices(lay)["alveolar"]], fio2])
 
     a, b = series(states), series(reference)
     peak = np.abs(b).max(axis=0)

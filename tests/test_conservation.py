@@ -80,6 +80,7 @@ def test_outputs_without_derivatives_are_those_of_the_full_model(case):
     """``model.outputs`` (what results are built from) skips the derivatives; its outputs must
     be bit for bit those of ``model.evaluate`` (the integrator's right-hand side), in every
     branch the cases reach (bag full, empty, draw-over vapour, spent absorbent)."""
+    from circlesim.engine import layout
     from circlesim.engine import model as m
     from circlesim.engine.assembly import assemble
 
@@ -88,8 +89,8 @@ def test_outputs_without_derivatives_are_those_of_the_full_model(case):
                          output_interval_min=1.0)
     inputs = assemble(cs.Patient(), circuit, cs.Absorber(), vaporizer, plan)
     lay = inputs.lay
-    full, only = np.empty(m.aux_size(lay)), np.empty(m.aux_size(lay))
-    dy, work = np.empty(m.state_size(lay)), np.empty(m.work_size(lay))
+    full, only = np.empty(layout.aux_size(lay)), np.empty(layout.aux_size(lay))
+    dy, work = np.empty(layout.state_size(lay)), np.empty(m.work_size(lay))
     segment = np.searchsorted(inputs.seg_times, result.time_min, side="right") - 1
     for y, k in zip(result.states, np.clip(segment, 0, len(inputs.params) - 1), strict=True):
         m.evaluate(y, inputs.params[k], lay, dy, full, work)

@@ -9,6 +9,7 @@ import numpy as np
 import pytest
 
 import circlesim as cs
+from circlesim.engine import layout
 from circlesim.engine import model as m
 from circlesim.engine.assembly import assemble
 from circlesim.engine.simulate import output_times, solve_states
@@ -28,14 +29,14 @@ def test_circuit_wash_in_without_patient(method):
     # ventilation, no metabolism): F_O2(t) = 1 − (1 − 0.20946) exp(−FGF t / V).
     inputs = _inputs()
     p = inputs.params
-    p[:, m.P_INSPIRED] = 0.0
-    p[:, m.P_DEAD_SPACE] = 0.0
-    p[:, m.P_VO2] = 0.0
-    p[:, m.P_VCO2] = 0.0
+    p[:, layout.P_INSPIRED] = 0.0
+    p[:, layout.P_DEAD_SPACE] = 0.0
+    p[:, layout.P_VO2] = 0.0
+    p[:, layout.P_VCO2] = 0.0
     t = np.linspace(0.0, 30.0, 61)
     states, _, _ = solve_states(inputs, t, method=method, rtol=1e-10)
     circuit = states[:, :len(inputs.gases)]
-    f_o2 = circuit[:, m.O2] / circuit.sum(axis=1)
+    f_o2 = circuit[:, layout.O2] / circuit.sum(axis=1)
     exact = 1.0 - (1.0 - m.AIR_O2) * np.exp(-4.0 * t / 5.0)
     np.testing.assert_allclose(f_o2, exact, rtol=0, atol=1e-6)
 
@@ -49,20 +50,20 @@ def test_single_tissue_at_constant_arterial_pressure(method):
     p = inputs.params
     lay = inputs.lay
     G, S, C = (int(v) for v in lay[:3])
-    sl = m.parameter_slices(lay)
-    p[:, m.P_VO2] = 0.0
-    p[:, m.P_VCO2] = 0.0
+    sl = layout.parameter_slices(lay)
+    p[:, layout.P_VO2] = 0.0
+    p[:, layout.P_VCO2] = 0.0
     taus = np.array([3.0, 20.0, 60.0, 150.0])[:C]
     flows = np.full(C, 1e-7)
     p[:, sl["tissue_flow"]] = flows
-    p[:, m.P_CARDIAC_OUTPUT] = flows.sum()
+    p[:, layout.P_CARDIAC_OUTPUT] = flows.sum()
     lam = p[0, sl["blood_gas"]]
-    capacity = (flows[:, None] * lam[None, :] * p[0, m.P_K_BODY]) * taus[:, None]
+    capacity = (flows[:, None] * lam[None, :] * p[0, layout.P_K_BODY]) * taus[:, None]
     p[:, sl["tissue_capacity"]] = capacity.ravel()
     p[:, sl["link_conductance"]] = 0.0
     fresh = p[0, sl["fresh"]]
     y0 = inputs.y0.copy()
-    y0[:G] = p[0, m.P_CIRCUIT_MAX] * fresh / fresh.sum()
+    y0[:G] = p[0, layout.P_CIRCUIT_MAX] * fresh / fresh.sum()
     y0[G:2 * G] = fresh / fresh.sum()
     y0[2 * G:2 * G + C * S] = 0.0
     f_agent = fresh[-1] / fresh.sum()
@@ -95,6 +96,6 @@ def test_compiled_matches_tight_scipy_reference():
     t = output_times(120.0, 1.0, plan.step_times)
     fast, _, _ = solve_states(inputs, t)
     reference, _, _ = solve_states(inputs, t, method="Radau", rtol=1e-10)
-    alv = m.state_slices(inputs.lay)["alveolar"]
+    alv = layout.state_slices(inputs.lay)["alveolar"]
     scale = np.maximum(np.abs(reference[:, alv]), 1e-4)
     assert np.max(np.abs(fast[:, alv] - reference[:, alv]) / scale) < 1e-4

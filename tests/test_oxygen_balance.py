@@ -13,7 +13,7 @@ import pytest
 import circlesim as cs
 from circlesim.base.units import atpd_to_stpd, btps_to_stpd
 from circlesim.engine.assembly import assemble
-from circlesim.engine.model import parameter_slices
+from circlesim.engine.layout import parameter_slices
 from circlesim.oxygen.minimum import lowest_safe_o2_fraction
 from circlesim.oxygen.setup import (
     FreshGas,

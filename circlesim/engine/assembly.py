@@ -17,6 +17,7 @@ from circlesim.base.validation import InputError
 from circlesim.domain.equipment import Absorber, Circuit, Vaporizer
 from circlesim.domain.patient import Patient
 from circlesim.domain.plan import Plan, Segment
+from circlesim.engine import layout
 from circlesim.engine import model as m
 from circlesim.properties import NITROGEN, NITROUS_OXIDE, SolubleGas
 
@@ -221,10 +222,10 @@ def assemble_group(patients: Sequence[Patient], circuit: Circuit, absorber: Abso
     tissues, volume, flow = _tissue_arrays(patients)
     tissue_index = {t.name: i for i, t in enumerate(tissues)}
     links = patients[0].intertissue_links()
-    lay = m.layout(n_gas, len(tissues), [tissue_index[a] for a, _, _ in links],
+    lay = layout.layout(n_gas, len(tissues), [tissue_index[a] for a, _, _ in links],
                    [tissue_index[b] for _, b, _ in links])
-    slices = m.parameter_slices(lay)
-    n_params = m.parameter_size(lay)
+    slices = layout.parameter_slices(lay)
+    n_params = layout.parameter_size(lay)
     k_circ = atpd_to_stpd(circuit.gas_temperature_c, circuit.ambient_pressure_kpa)
     k_body = btps_to_stpd(circuit.ambient_pressure_kpa)
 
@@ -246,27 +247,27 @@ def assemble_group(patients: Sequence[Patient], circuit: Circuit, absorber: Abso
     agent = vaporizer.properties
     saturation = agent.vapour_pressure_kpa(circuit.gas_temperature_c) / circuit.ambient_pressure_kpa
     base = np.zeros((len(patients), n_params))
-    base[:, m.P_VO2] = ml_to_l(column("vo2"))
-    base[:, m.P_VCO2] = ml_to_l(column("vco2"))
-    base[:, m.P_CARDIAC_OUTPUT] = column("cardiac_output")
-    base[:, m.P_SHUNT] = column("shunt_fraction")
-    base[:, m.P_K_BODY] = k_body
-    base[:, m.P_LUNG_VOLUME] = column("frc")
-    base[:, m.P_LEAK] = k_circ * ml_to_l(circuit.leak_ml_min)
-    base[:, m.P_SAMPLE_LOST] = 0.0 if circuit.sample_returned else (
+    base[:, layout.P_VO2] = ml_to_l(column("vo2"))
+    base[:, layout.P_VCO2] = ml_to_l(column("vco2"))
+    base[:, layout.P_CARDIAC_OUTPUT] = column("cardiac_output")
+    base[:, layout.P_SHUNT] = column("shunt_fraction")
+    base[:, layout.P_K_BODY] = k_body
+    base[:, layout.P_LUNG_VOLUME] = column("frc")
+    base[:, layout.P_LEAK] = k_circ * ml_to_l(circuit.leak_ml_min)
+    base[:, layout.P_SAMPLE_LOST] = 0.0 if circuit.sample_returned else (
         k_circ * ml_to_l(circuit.sample_ml_min))
-    base[:, m.P_SAMPLE_INSPIRED] = circuit.inspiratory_fraction
-    base[:, m.P_DRAW_OVER_GAS] = agent_index if vaporizer.placement == "inside" else -1
-    base[:, m.P_DRAW_OVER_SATURATION] = min(saturation, 1.0)
+    base[:, layout.P_SAMPLE_INSPIRED] = circuit.inspiratory_fraction
+    base[:, layout.P_DRAW_OVER_GAS] = agent_index if vaporizer.placement == "inside" else -1
+    base[:, layout.P_DRAW_OVER_SATURATION] = min(saturation, 1.0)
     n_min = k_circ * circuit.volume_l
     n_max = k_circ * circuit.total_volume_l
-    base[:, m.P_CIRCUIT_MIN] = n_min
-    base[:, m.P_CIRCUIT_MAX] = n_max
-    base[:, m.P_RELAXATION] = RELAXATION_PER_MIN
-    base[:, m.P_ABSORBENT_CAPACITY] = absorber.capacity_l
-    base[:, m.P_ABSORBENT_KNEE] = absorber.breakthrough_start
-    base[:, m.P_O2_FLOOR] = O2_FLOOR
-    base[:, m.P_VENT_EXHALED] = circuit.vent_exhaled_share
+    base[:, layout.P_CIRCUIT_MIN] = n_min
+    base[:, layout.P_CIRCUIT_MAX] = n_max
+    base[:, layout.P_RELAXATION] = RELAXATION_PER_MIN
+    base[:, layout.P_ABSORBENT_CAPACITY] = absorber.capacity_l
+    base[:, layout.P_ABSORBENT_KNEE] = absorber.breakthrough_start
+    base[:, layout.P_O2_FLOOR] = O2_FLOOR
+    base[:, layout.P_VENT_EXHALED] = circuit.vent_exhaled_share
     base[:, slices["blood_gas"]] = lam
     base[:, slices["tissue_flow"]] = flow
     base[:, slices["tissue_capacity"]] = capacity.reshape(len(patients), -1)
@@ -274,7 +275,7 @@ def assemble_group(patients: Sequence[Patient], circuit: Circuit, absorber: Abso
 
     # ---- the plan's segments (one column per setting, segment axis first) -----------------
     n_seg = len(template)
-    n_state = m.state_size(lay)
+    n_state = layout.state_size(lay)
     o2, air, n2o, dial, inject, tidal, rate = (np.array(
         [getattr(seg, name) for seg in template], dtype=float) for name in (
         "o2_l_min", "air_l_min", "n2o_l_min", "dial_percent", "inject_ml", "tidal_volume_ml",
@@ -284,17 +285,17 @@ def assemble_group(patients: Sequence[Patient], circuit: Circuit, absorber: Abso
     rate = np.where(np.isnan(rate), rate_default[:, None], rate[None, :])
     _check_tidal_volumes(tidal, dead_space, several)
     params = np.repeat(base[:, None, :], n_seg, axis=1)
-    params[:, :, m.P_INSPIRED] = k_body * (ml_to_l(tidal) * rate)
-    params[:, :, m.P_DEAD_SPACE] = k_body * (ml_to_l(dead_space)[:, None] * rate)
+    params[:, :, layout.P_INSPIRED] = k_body * (ml_to_l(tidal) * rate)
+    params[:, :, layout.P_DEAD_SPACE] = k_body * (ml_to_l(dead_space)[:, None] * rate)
     carrier = np.zeros((n_seg, n_gas))
-    carrier[:, m.O2] = k_circ * (o2 + m.AIR_O2 * air)
-    carrier[:, m.N2] = k_circ * m.AIR_N2 * air
-    carrier[:, m.N2O] = k_circ * n2o
+    carrier[:, layout.O2] = k_circ * (o2 + m.AIR_O2 * air)
+    carrier[:, layout.N2] = k_circ * m.AIR_N2 * air
+    carrier[:, layout.N2O] = k_circ * n2o
     fraction = dial / 100.0
     if vaporizer.placement == "outside":
         carrier[:, agent_index] = carrier.sum(axis=1) * fraction / (1.0 - fraction)
     else:
-        params[:, :, m.P_DRAW_OVER_SETTING] = fraction
+        params[:, :, layout.P_DRAW_OVER_SETTING] = fraction
     params[:, :, slices["fresh"]] = carrier
     jumps = np.zeros((n_seg, n_state))
     injected = inject > 0.0
@@ -302,12 +303,12 @@ def assemble_group(patients: Sequence[Patient], circuit: Circuit, absorber: Abso
         vapour = liquid_ml_to_vapour_l_stpd(inject[injected], agent.liquid_density_g_ml,
                                             agent.molar_mass_g_mol)
         jumps[injected, agent_index] = vapour
-        jumps[injected, m.state_slices(lay)["delivered"].start + agent_index] = vapour
+        jumps[injected, layout.state_slices(lay)["delivered"].start + agent_index] = vapour
     seg_times = np.array([s.start_min for s in template] + [template[-1].end_min])
 
     y0 = initial_states(lay, params[:, 0], circuit, absorber, k_circ, several)
     atol = np.empty(n_state)
-    sl = m.state_slices(lay)
+    sl = layout.state_slices(lay)
     atol[sl["circuit"]] = 1e-12
     atol[sl["alveolar"]] = 1e-12
     atol[sl["tissue"]] = 1e-12
@@ -331,18 +332,18 @@ def initial_states(lay: np.ndarray, p: np.ndarray, circuit: Circuit, absorber: A
     air at the first segment's ventilation; tissue nitrogen is in equilibrium with alveolar
     nitrogen; the absorbent starts at its stated used fraction.
     """
-    sl = m.state_slices(lay)
-    y = np.zeros((p.shape[0], m.state_size(lay)))
+    sl = layout.state_slices(lay)
+    y = np.zeros((p.shape[0], layout.state_size(lay)))
     amount = k_circ * (circuit.volume_l + circuit.bag_fill * circuit.bag_l)
     if circuit.start_gas == "air":
-        y[:, m.O2] = amount * m.AIR_O2
-        y[:, m.N2] = amount * m.AIR_N2
+        y[:, layout.O2] = amount * m.AIR_O2
+        y[:, layout.N2] = amount * m.AIR_N2
     else:
-        carrier = p[:, m.parameter_slices(lay)["fresh"]].copy()
-        carrier[:, m.FIRST_AGENT:] = 0.0
+        carrier = p[:, layout.parameter_slices(lay)["fresh"]].copy()
+        carrier[:, layout.FIRST_AGENT:] = 0.0
         y[:, : carrier.shape[1]] = amount * carrier / carrier.sum(axis=1, keepdims=True)
-    vo2, vco2 = p[:, m.P_VO2], p[:, m.P_VCO2]
-    alveolar_in = p[:, m.P_INSPIRED] - p[:, m.P_DEAD_SPACE]
+    vo2, vco2 = p[:, layout.P_VO2], p[:, layout.P_VCO2]
+    alveolar_in = p[:, layout.P_INSPIRED] - p[:, layout.P_DEAD_SPACE]
     alveolar_out = alveolar_in - vo2 + vco2
     short = np.flatnonzero(alveolar_in <= vo2)
     if short.size:
@@ -351,13 +352,14 @@ def initial_states(lay: np.ndarray, p: np.ndarray, circuit: Circuit, absorber: A
                          "the patient's oxygen consumption breathing air; raise "
                          "tidal_volume_ml or rate_per_min.")
     alv = sl["alveolar"].start
-    y[:, alv + m.O2] = (alveolar_in * m.AIR_O2 - vo2) / alveolar_out
-    y[:, alv + m.CO2] = vco2 / alveolar_out
-    y[:, alv + m.N2] = alveolar_in * m.AIR_N2 / alveolar_out
+    y[:, alv + layout.O2] = (alveolar_in * m.AIR_O2 - vo2) / alveolar_out
+    y[:, alv + layout.CO2] = vco2 / alveolar_out
+    y[:, alv + layout.N2] = alveolar_in * m.AIR_N2 / alveolar_out
     n_soluble = int(lay[1])
     tissue = sl["tissue"]
     for c in range(int(lay[2])):
-        y[:, tissue.start + c * n_soluble + (m.N2 - m.FIRST_SOLUBLE)] = y[:, alv + m.N2]
+        nitrogen = tissue.start + c * n_soluble + layout.N2 - layout.FIRST_SOLUBLE
+        y[:, nitrogen] = y[:, alv + layout.N2]
     y[:, sl["absorbent"].start] = absorber.used_fraction * absorber.capacity_l
     return y
 

@@ -32,6 +32,7 @@ from circlesim.base.validation import InputError, Interval, check_number
 from circlesim.domain.equipment import Absorber, Circuit, Vaporizer
 from circlesim.domain.patient import Patient
 from circlesim.domain.plan import Plan
+from circlesim.engine import layout
 from circlesim.engine import model as m
 from circlesim.engine.alerts import AlertRule, default_rules
 from circlesim.engine.batch_inputs import assemble_members
@@ -44,7 +45,7 @@ if TYPE_CHECKING:  # pragma: no cover
 
 __all__ = ["simulate_batch"]
 
-discard_stale_cache(__file__, [m.__file__])
+discard_stale_cache(__file__, [m.__file__, layout.__file__])
 
 #: Largest integration step, min (as :func:`circlesim.engine.simulate.solve_states`).
 H_MAX_MIN = 5.0
@@ -200,7 +201,7 @@ def simulate_batch(patient: Patient | Sequence[Patient], circuit: Circuit | Sequ
     auxiliary = _auxiliary_parallel if parallel else _auxiliary_serial
     aux = auxiliary(states, params, seg_index, first.lay)
     return BatchResult(
-        time_min=t_out, gases=first.gases, soluble_gases=first.gases[m.FIRST_SOLUBLE:],
+        time_min=t_out, gases=first.gases, soluble_gases=first.gases[layout.FIRST_SOLUBLE:],
         tissue_names=first.tissue_names, tissue_labels=first.tissue_labels, states=states,
         aux=aux, final_state=final, solver_stats=stats, inputs=inputs,
         patients=g["patient"], circuits=g["circuit"], absorbers=g["absorber"],

@@ -19,7 +19,7 @@ from circlesim.base.units import vapour_l_stpd_to_grams, vapour_l_stpd_to_liquid
 from circlesim.domain.equipment import Absorber, Circuit, Vaporizer
 from circlesim.domain.patient import Patient
 from circlesim.domain.plan import Plan
-from circlesim.engine import model as m
+from circlesim.engine import layout
 from circlesim.engine.alerts import AlertRule
 from circlesim.engine.batch_inputs import MemberInputs
 from circlesim.engine.result import Result, SolverReport
@@ -122,13 +122,13 @@ class BatchResult:
 
     # ---- series ---------------------------------------------------------------------------
     def _aux(self, name: str) -> np.ndarray:
-        return self.aux[:, :, m.aux_slices(self._lay)[name]]
+        return self.aux[:, :, layout.aux_slices(self._lay)[name]]
 
     def _aux_scalar(self, index: int) -> np.ndarray:
-        return self.aux[:, :, m.aux_slices(self._lay)["scalars"].start + index]
+        return self.aux[:, :, layout.aux_slices(self._lay)["scalars"].start + index]
 
     def _state(self, name: str) -> np.ndarray:
-        return self.states[:, :, m.state_slices(self._lay)[name]]
+        return self.states[:, :, layout.state_slices(self._lay)[name]]
 
     @property
     def inspired(self) -> np.ndarray:
@@ -181,43 +181,43 @@ class BatchResult:
     @property
     def fresh_gas_stpd(self) -> np.ndarray:
         """Fresh gas flow with plenum vapour, L STPD/min, shape (B, T)."""
-        return self._aux_scalar(m.AUX_FRESH)
+        return self._aux_scalar(layout.AUX_FRESH)
 
     @property
     def vented_stpd(self) -> np.ndarray:
         """Gas vented by the pressure-limiting valve, L STPD/min, shape (B, T)."""
-        return self._aux_scalar(m.AUX_VENT)
+        return self._aux_scalar(layout.AUX_VENT)
 
     @property
     def entrained_stpd(self) -> np.ndarray:
         """Room air entrained by an empty circuit, L STPD/min, shape (B, T)."""
-        return self._aux_scalar(m.AUX_ENTRAINED)
+        return self._aux_scalar(layout.AUX_ENTRAINED)
 
     @property
     def absorbed_stpd(self) -> np.ndarray:
         """CO2 taken up by the absorbent, L STPD/min, shape (B, T)."""
-        return self._aux_scalar(m.AUX_ABSORBED)
+        return self._aux_scalar(layout.AUX_ABSORBED)
 
     @property
     def circuit_amount_stpd(self) -> np.ndarray:
         """Gas in the circuit, L STPD, shape (B, T)."""
-        return self._aux_scalar(m.AUX_CIRCUIT_AMOUNT)
+        return self._aux_scalar(layout.AUX_CIRCUIT_AMOUNT)
 
     @property
     def absorbent_used_fraction(self) -> np.ndarray:
         """Fraction of each member's absorbent capacity used, shape (B, T)."""
-        capacity = self.inputs.params[:, 0, m.P_ABSORBENT_CAPACITY]
+        capacity = self.inputs.params[:, 0, layout.P_ABSORBENT_CAPACITY]
         return self._state("absorbent")[:, :, 0] / capacity[:, None]
 
     @cached_property
     def cumulative(self) -> dict[str, np.ndarray]:
         """Amounts since the start, L STPD, each shape (B, T, G) (as ``Result.cumulative``;
         made on first access and kept)."""
-        out = {name: self._state(name) for name in m.ACCUMULATOR_NAMES}
-        start = self.inputs.y0[:, m.state_slices(self._lay)[
+        out = {name: self._state(name) for name in layout.ACCUMULATOR_NAMES}
+        start = self.inputs.y0[:, layout.state_slices(self._lay)[
             "absorbent"].start]
         absorbed = np.zeros_like(out["delivered"])
-        absorbed[:, :, m.CO2] = self._state("absorbent")[:, :, 0] - start[:, None]
+        absorbed[:, :, layout.CO2] = self._state("absorbent")[:, :, 0] - start[:, None]
         out["absorbed"] = absorbed
         return out
 

@@ -16,7 +16,7 @@ import numpy as np
 from circlesim.domain.equipment import Absorber, Circuit, Vaporizer
 from circlesim.domain.patient import Patient
 from circlesim.domain.plan import Plan, Segment, Step
-from circlesim.engine import model as m
+from circlesim.engine import layout
 from circlesim.engine.assembly import ModelInputs, assemble
 from circlesim.engine.simulate import MAX_STEPS, SimulationError
 from circlesim.engine.solver import STATUS_MESSAGES, integrate, integrate_batch
@@ -90,17 +90,17 @@ class Runner:
         lay = self.inputs.lay
         self.lay = lay
         n_gas = int(lay[0])
-        slices = m.state_slices(lay)
+        slices = layout.state_slices(lay)
         #: index in the state of the alveolar (end-tidal) agent fraction
         self.et_index = slices["alveolar"].start + self.inputs.agent_index
         brain = list(self.inputs.tissue_names).index("vessel_rich")
         n_soluble = int(lay[1])
         #: index in the state of the vessel-rich group (brain) agent fraction equivalent
         self.brain_index = (slices["tissue"].start + brain * n_soluble
-                            + self.inputs.agent_index - m.FIRST_SOLUBLE)
+                            + self.inputs.agent_index - layout.FIRST_SOLUBLE)
         #: index in the state of the cumulative agent delivered, L STPD
         self.delivered_index = slices["delivered"].start + self.inputs.agent_index
-        self.o2_alveolar_index = slices["alveolar"].start + m.O2
+        self.o2_alveolar_index = slices["alveolar"].start + layout.O2
         self.n_gas = n_gas
         self._rows: dict[Knobs, np.ndarray] = {}
         self._dial_basis: dict[Knobs, tuple | None] = {}

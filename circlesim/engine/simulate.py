@@ -24,6 +24,7 @@ from circlesim.base.validation import InputError, Interval, check_number
 from circlesim.domain.equipment import Absorber, Circuit, Vaporizer
 from circlesim.domain.patient import Patient
 from circlesim.domain.plan import Plan
+from circlesim.engine import layout
 from circlesim.engine import model as m
 from circlesim.engine.alerts import AlertRule, default_rules, evaluate_alerts
 from circlesim.engine.assembly import ModelInputs, assemble
@@ -124,25 +125,25 @@ def build_result(inputs: ModelInputs, t_out: np.ndarray, states: np.ndarray,
     seg_index = np.clip(np.searchsorted(inputs.seg_times, t_out, side="right") - 1, 0,
                         len(inputs.params) - 1)
     aux = m.auxiliary_series(states, inputs.params, seg_index.astype(np.int64), lay)
-    a = m.aux_slices(lay)
+    a = layout.aux_slices(lay)
     sc = aux[:, a["scalars"]]
-    sl = m.state_slices(lay)
+    sl = layout.state_slices(lay)
     circuit_amounts = states[:, sl["circuit"]]
     tissue = states[:, sl["tissue"]].reshape(len(t_out), C, S)
-    lung_gas = float(inputs.k_body * inputs.params[0][m.P_LUNG_VOLUME])
-    capacity = inputs.params[0][m.parameter_slices(lay)["tissue_capacity"]].reshape(C, S)
+    lung_gas = float(inputs.k_body * inputs.params[0][layout.P_LUNG_VOLUME])
+    capacity = inputs.params[0][layout.parameter_slices(lay)["tissue_capacity"]].reshape(C, S)
     y0 = inputs.y0
     held_at_start = y0[sl["circuit"]] + y0[sl["alveolar"]] * lung_gas
-    held_at_start[m.FIRST_SOLUBLE:] += (y0[sl["tissue"]].reshape(C, S) * capacity).sum(axis=0)
-    cumulative = {name: states[:, sl[name]] for name in m.ACCUMULATOR_NAMES}
+    held_at_start[layout.FIRST_SOLUBLE:] += (y0[sl["tissue"]].reshape(C, S) * capacity).sum(axis=0)
+    cumulative = {name: states[:, sl[name]] for name in layout.ACCUMULATOR_NAMES}
     absorbed = np.zeros((len(t_out), G))
-    absorbed[:, m.CO2] = states[:, sl["absorbent"].start] - inputs.y0[sl["absorbent"].start]
+    absorbed[:, layout.CO2] = states[:, sl["absorbent"].start] - inputs.y0[sl["absorbent"].start]
     cumulative["absorbed"] = absorbed
-    capacity_l = inputs.params[0][m.P_ABSORBENT_CAPACITY]
+    capacity_l = inputs.params[0][layout.P_ABSORBENT_CAPACITY]
     result = Result(
         time_min=t_out,
         gases=inputs.gases,
-        soluble_gases=inputs.gases[m.FIRST_SOLUBLE:],
+        soluble_gases=inputs.gases[layout.FIRST_SOLUBLE:],
         tissue_names=inputs.tissue_names,
         tissue_labels=inputs.tissue_labels,
         inspired=aux[:, a["inspired"]],
@@ -150,18 +151,18 @@ def build_result(inputs: ModelInputs, t_out: np.ndarray, states: np.ndarray,
         arterial=aux[:, a["arterial"]],
         mixed_venous=aux[:, a["mixed_venous"]],
         tissue=tissue,
-        fresh_gas_stpd=sc[:, m.AUX_FRESH],
-        vented_stpd=sc[:, m.AUX_VENT],
-        leak_stpd=sc[:, m.AUX_LEAK],
-        sample_lost_stpd=sc[:, m.AUX_SAMPLE_LOST],
-        entrained_stpd=sc[:, m.AUX_ENTRAINED],
-        draw_over_vapour_stpd=sc[:, m.AUX_DRAW_OVER_VAPOUR],
-        absorbed_stpd=sc[:, m.AUX_ABSORBED],
+        fresh_gas_stpd=sc[:, layout.AUX_FRESH],
+        vented_stpd=sc[:, layout.AUX_VENT],
+        leak_stpd=sc[:, layout.AUX_LEAK],
+        sample_lost_stpd=sc[:, layout.AUX_SAMPLE_LOST],
+        entrained_stpd=sc[:, layout.AUX_ENTRAINED],
+        draw_over_vapour_stpd=sc[:, layout.AUX_DRAW_OVER_VAPOUR],
+        absorbed_stpd=sc[:, layout.AUX_ABSORBED],
         uptake_stpd=aux[:, a["uptake"]],
         vented_gas_stpd=aux[:, a["vented"]],
         fresh_gas_by_gas_stpd=aux[:, a["fresh"]],
-        circuit_amount_stpd=sc[:, m.AUX_CIRCUIT_AMOUNT],
-        absorbent_efficiency=sc[:, m.AUX_ABSORBENT_EFFICIENCY],
+        circuit_amount_stpd=sc[:, layout.AUX_CIRCUIT_AMOUNT],
+        absorbent_efficiency=sc[:, layout.AUX_ABSORBENT_EFFICIENCY],
         absorbent_used_fraction=states[:, sl["absorbent"].start] / capacity_l,
         cumulative=cumulative,
         held_in_circuit=circuit_amounts,
@@ -214,7 +215,7 @@ def simulate_dials(patient: Patient, circuit: Circuit, plan: Plan, *,
             raise InputError("initial_state must be the final_state of a result for the same "
                              f"patient and agent (length {inputs.y0.size}); got shape "
                              f"{y0.shape}.")
-        acc = m.state_slices(inputs.lay)["delivered"].start
+        acc = layout.state_slices(inputs.lay)["delivered"].start
         y0[acc:] = 0.0
     t_out = output_times(plan.duration_min, output_interval_min, plan.step_times)
     states, final, report = solve_states(inputs, t_out, method=method, rtol=rtol, y0=y0)

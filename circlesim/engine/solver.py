@@ -21,10 +21,10 @@ import numpy as np
 from numba import njit, prange
 
 from circlesim.base.compiled_cache import discard_stale_cache
-from circlesim.engine import model
+from circlesim.engine import layout, model
 from circlesim.engine.model import evaluate, work_size
 
-discard_stale_cache(__file__, [model.__file__])
+discard_stale_cache(__file__, [model.__file__, layout.__file__])
 
 __all__ = ["STATUS_MESSAGES", "integrate", "integrate_batch", "integrate_batch_serial"]
 
@@ -114,7 +114,7 @@ def integrate(y0, params, seg_times, jumps, lay, t_out, atol, rtol, h_max, max_s
     jumps : ndarray, shape (n_segments, n_state)
         Added to the state at the start of each segment (e.g. injected vapour).
     lay : ndarray of int64
-        Model layout (:func:`circlesim.engine.model.layout`).
+        Model layout (:func:`circlesim.engine.layout.layout`).
     t_out : ndarray, shape (n_out,)
         Output times, min, non-decreasing, within ``[seg_times[0], seg_times[-1]]``.
     atol : ndarray, shape (n_state,)

@@ -21,7 +21,7 @@ import numpy as np
 
 from circlesim.base.validation import InputError, Interval, check_choice, check_number
 from circlesim.domain.plan import Plan, Step
-from circlesim.engine import model as m
+from circlesim.engine import layout
 from circlesim.engine.assembly import assemble
 from circlesim.engine.result import Result
 from circlesim.oxygen.setup import FreshGas, Setup, minimum_fgf_l_min
@@ -55,15 +55,15 @@ class NitrogenStore:
 def _tissue_capacity(setup: Setup):
     probe = Plan((Step(0.0, o2_l_min=1.0),), duration_min=1.0)
     inputs = assemble(setup.patient, setup.circuit, setup.absorber, setup.vaporizer, probe)
-    capacity = inputs.params[0][m.parameter_slices(inputs.lay)["tissue_capacity"]].reshape(
-        len(inputs.tissue_names), -1)[:, m.N2 - m.FIRST_SOLUBLE]
+    capacity = inputs.params[0][layout.parameter_slices(inputs.lay)["tissue_capacity"]].reshape(
+        len(inputs.tissue_names), -1)[:, layout.N2 - layout.FIRST_SOLUBLE]
     return inputs, capacity
 
 
 def body_nitrogen_store(setup: Setup) -> NitrogenStore:
     """The patient's nitrogen store at the start of a plan (breathing room air)."""
     inputs, capacity = _tissue_capacity(setup)
-    fa = float(inputs.y0[m.state_slices(inputs.lay)["alveolar"]][m.N2])
+    fa = float(inputs.y0[layout.state_slices(inputs.lay)["alveolar"]][layout.N2])
     tissue = {name: float(c * fa) for name, c in zip(inputs.tissue_names, capacity, strict=True)}
     return NitrogenStore(tissue_l=tissue, dissolved_l=float(sum(tissue.values())),
                          lungs_l=float(inputs.k_body * setup.patient.frc * fa),

@@ -37,6 +37,7 @@ from circlesim.base.validation import (
 from circlesim.domain.equipment import Absorber, Circuit, Vaporizer
 from circlesim.domain.patient import Patient
 from circlesim.domain.plan import MAX_PLAN_MIN, MAX_TOTAL_FGF_L_MIN, MIN_TOTAL_FGF_L_MIN, Plan, Step
+from circlesim.engine import layout
 from circlesim.engine import model as m
 from circlesim.engine.assembly import assemble
 from circlesim.engine.result import Result
@@ -279,11 +280,11 @@ def circuit_flows(setup: Setup, *, tidal_volume_ml: float | None = None,
                        rate_per_min=rate_per_min),), duration_min=1.0)
     p = assemble(setup.patient, setup.circuit, setup.absorber, setup.vaporizer, probe).params[0]
     return CircuitFlows(
-        inspired_l_min=float(p[m.P_INSPIRED]), dead_space_l_min=float(p[m.P_DEAD_SPACE]),
-        vo2_l_min=float(p[m.P_VO2]), vco2_l_min=float(p[m.P_VCO2]),
-        leak_l_min=float(p[m.P_LEAK]), sample_lost_l_min=float(p[m.P_SAMPLE_LOST]),
-        sample_inspired_fraction=float(p[m.P_SAMPLE_INSPIRED]),
-        vent_exhaled_share=float(p[m.P_VENT_EXHALED]), k_circuit=setup.k_circuit)
+        inspired_l_min=float(p[layout.P_INSPIRED]), dead_space_l_min=float(p[layout.P_DEAD_SPACE]),
+        vo2_l_min=float(p[layout.P_VO2]), vco2_l_min=float(p[layout.P_VCO2]),
+        leak_l_min=float(p[layout.P_LEAK]), sample_lost_l_min=float(p[layout.P_SAMPLE_LOST]),
+        sample_inspired_fraction=float(p[layout.P_SAMPLE_INSPIRED]),
+        vent_exhaled_share=float(p[layout.P_VENT_EXHALED]), k_circuit=setup.k_circuit)
 
 
 def fresh_gas_stpd(k_circuit: float, fgf_l_min, o2_fraction, carrier: str = "air",
@@ -396,7 +397,7 @@ def engine_steady_state(setup: Setup, fresh: FreshGas, *, chunk_min: float = 144
     plan = Plan((Step(0.0, **fresh.settings()),), duration_min=chunk_min, name="steady state")
     setup = replace(setup, absorber=FRESH_ABSORBER)
     inputs = assemble(setup.patient, setup.circuit, setup.absorber, setup.vaporizer, plan)
-    absorbent = m.state_slices(inputs.lay)["absorbent"].start
+    absorbent = layout.state_slices(inputs.lay)["absorbent"].start
     result = setup.simulate(plan, output_interval_min=output_interval_min)
     previous = result.inspired[-1, :4]
     for _ in range(max_chunks - 1):
