@@ -127,7 +127,7 @@ def evaluate(y, p, lay, dy, aux, work):
     p : ndarray, shape (n_params,)
         Parameters of the current plan segment.
     lay : ndarray of int64
-        Layout from :func:`layout`.
+        Layout from :func:`circlesim.engine.layout.layout`.
     dy : ndarray, shape (n_state,)
         Output: derivatives, per minute.
     aux : ndarray, shape (n_aux,)

@@ -140,7 +140,7 @@ class Result:
     tissue_capacity_stpd : ndarray, shape (C, S)
         Gas each tissue group holds per unit dry-gas-fraction equivalent, L STPD.
     states : ndarray, shape (T, n_state)
-        Raw model states (see :mod:`circlesim.engine.model`).
+        Raw model states (layout: :mod:`circlesim.engine.layout`).
     final_state : ndarray
         State at the end of the plan, for continuing (``simulate(..., initial_state=...)``).
     k_circuit : float
