@@ -13,7 +13,10 @@ Usage::
     segment by segment, Radau at rtol 1e-10 (the accuracy reference) and LSODA at rtol 1e-6
     (the same tolerance as circlesim's default). Accuracy: the largest difference in
     end-tidal fractions (every gas) and FIO2 against the Radau reference, relative to each
-    series' peak.
+    series' peak. Three parts of the overhead are timed in the same alternating loop: the
+    model's outputs at every output time, the alert rules on a finished result and building
+    the model's arrays (each runs after the others have filled the caches, as inside
+    ``simulate``; alone and warm, the alerts and the arrays take about half as long).
 (b) 10,000 virtual patients over the same 4-hour plan (output every minute): the wall time of
     a population run (sampling, batch integration, curves and outcomes) in this process on
     numba's threads and on local worker processes, the per-patient speed-up over the
@@ -47,6 +50,7 @@ import circlesim as cs
 from circlesim.base.distributed import local_workers
 from circlesim.engine import layout
 from circlesim.engine import model as m
+from circlesim.engine.alerts import default_rules, evaluate_alerts
 from circlesim.engine.assembly import assemble
 from circlesim.engine.batch import simulate_batch
 from circlesim.engine.simulate import MAX_STEPS, output_times, solve_states
@@ -151,8 +155,20 @@ def bench_single(repeats: int) -> list[tuple]:
         return integrate(inputs.y0, inputs.params, inputs.seg_times, inputs.jumps, inputs.lay,
                          t_out, inputs.atol, 1e-6, 5.0, MAX_STEPS)
 
-    (t_sim, c_sim, _), (t_bare, c_bare, (ours, _, _)) = interleaved_medians(
-        [lambda: cs.simulate(patient, circuit, plan, vaporizer=vaporizer), bare], 2 * repeats)
+    # parts of the overhead, timed in the same loop: the model's outputs at every output time,
+    # the alert rules on a finished result, and building the model's arrays
+    states = bare()[0]
+    segment = np.clip(np.searchsorted(inputs.seg_times, t_out, side="right") - 1, 0,
+                      len(inputs.params) - 1).astype(np.int64)
+    result = cs.simulate(patient, circuit, plan, vaporizer=vaporizer)
+    rules = default_rules()
+    timings = interleaved_medians(
+        [lambda: cs.simulate(patient, circuit, plan, vaporizer=vaporizer), bare,
+         lambda: m.auxiliary_series(states, inputs.params, segment, inputs.lay),
+         lambda: evaluate_alerts(result, rules),
+         lambda: assemble(patient, circuit, cs.Absorber(), vaporizer, plan)], 2 * repeats)
+    (t_sim, c_sim, _), (t_bare, c_bare, (ours, _, _)) = timings[:2]
+    t_outputs, t_alerts, t_arrays = (t for t, _, _ in timings[2:])
     t_ref, c_ref, (ref, _, _) = median_time(lambda: solve_states(
         inputs, t_out, method=REFERENCE[0], rtol=REFERENCE[1]), max(1, repeats // 20),
         warm_up=0)
@@ -168,6 +184,11 @@ def bench_single(repeats: int) -> list[tuple]:
          t_matched / t_bare, "", None),
         ("(a) simulate minus bare integration (overhead)", overhead * ms, None, "ms",
          t_ref / max(overhead, 1e-9), None, "< bare", overhead < t_bare),
+        (f"(a)   of which model outputs at {t_out.size} times", t_outputs * ms, None, "ms",
+         None, None, "", None),
+        ("(a)   of which alert rules", t_alerts * ms, None, "ms", None, None, "", None),
+        ("(a)   of which model arrays (assemble)", t_arrays * ms, None, "ms", None, None, "",
+         None),
         (f"(a) solve_ivp {REFERENCE[0]} rtol {REFERENCE[1]:g} (reference)", t_ref * ms,
          c_ref * ms, "ms", 1.0, t_matched / t_ref, "", None),
         (f"(a) solve_ivp {MATCHED[0]} rtol {MATCHED[1]:g} (same tolerance)", t_matched * ms,
