@@ -109,6 +109,9 @@ class Result:
     ----------
     time_min : ndarray, shape (T,)
         Minutes from the start of the plan.
+    segment_index : ndarray of int, shape (T,)
+        The plan segment (:meth:`~circlesim.domain.plan.Plan.segments`) in force at each
+        output time.
     gases, soluble_gases, tissue_names, tissue_labels : tuple of str
     inspired, end_tidal : ndarray, shape (T, G)
         Dry-gas fractions: inspired gas, alveolar (end-tidal) gas.
@@ -159,6 +162,7 @@ class Result:
     """
 
     time_min: np.ndarray
+    segment_index: np.ndarray
     gases: tuple[str, ...]
     soluble_gases: tuple[str, ...]
     tissue_names: tuple[str, ...]
@@ -284,10 +288,7 @@ class Result:
         """The plan's segments and the segment in force at each output time (made once)."""
         segments = self.plan.segments(self.patient.default_tidal_volume_ml,
                                       self.patient.default_rate_per_min, self.circuit.valve)
-        starts = np.array([s.start_min for s in segments])
-        index = np.clip(np.searchsorted(starts, self.time_min, side="right") - 1, 0,
-                        len(segments) - 1)
-        return segments, index
+        return segments, self.segment_index
 
     def segment_values(self, setting: str) -> np.ndarray:
         """A plan setting (a :class:`~circlesim.domain.plan.Segment` field) at each output time."""

@@ -123,8 +123,8 @@ def build_result(inputs: ModelInputs, t_out: np.ndarray, states: np.ndarray,
     lay = inputs.lay
     G, S, C = (int(v) for v in lay[:3])
     seg_index = np.clip(np.searchsorted(inputs.seg_times, t_out, side="right") - 1, 0,
-                        len(inputs.params) - 1)
-    aux = m.auxiliary_series(states, inputs.params, seg_index.astype(np.int64), lay)
+                        len(inputs.params) - 1).astype(np.int64)
+    aux = m.auxiliary_series(states, inputs.params, seg_index, lay)
     a = layout.aux_slices(lay)
     sc = aux[:, a["scalars"]]
     sl = layout.state_slices(lay)
@@ -142,6 +142,7 @@ def build_result(inputs: ModelInputs, t_out: np.ndarray, states: np.ndarray,
     capacity_l = inputs.params[0][layout.P_ABSORBENT_CAPACITY]
     result = Result(
         time_min=t_out,
+        segment_index=seg_index,
         gases=inputs.gases,
         soluble_gases=inputs.gases[layout.FIRST_SOLUBLE:],
         tissue_names=inputs.tissue_names,
