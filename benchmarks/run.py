@@ -131,8 +131,7 @@ def relative_difference(states: np.ndarray, reference: np.ndarray, inputs,
                         t_out: np.ndarray) -> float:
     """Largest difference in end-tidal fractions and FIO2, relative to each series' peak."""
     lay = inputs.lay
-    seg = np.clip(np.searchsorted(inputs.seg_times, t_out, side="right") - 1, 0,
-                  len(inputs.params) - 1).astype(np.int64)
+    seg = inputs.segment_at(t_out)
 
     def series(s):
         fio2 = m.auxiliary_series(s, inputs.params, seg, lay)[:, layout.aux_slices(lay)[
@@ -158,8 +157,7 @@ def bench_single(repeats: int) -> list[tuple]:
     # parts of the overhead, timed in the same loop: the model's outputs at every output time,
     # the alert rules on a finished result, and building the model's arrays
     states = bare()[0]
-    segment = np.clip(np.searchsorted(inputs.seg_times, t_out, side="right") - 1, 0,
-                      len(inputs.params) - 1).astype(np.int64)
+    segment = inputs.segment_at(t_out)
     result = cs.simulate(patient, circuit, plan, vaporizer=vaporizer)
     rules = default_rules()
     timings = interleaved_medians(

@@ -91,8 +91,7 @@ def test_outputs_without_derivatives_are_those_of_the_full_model(case):
     lay = inputs.lay
     full, only = np.empty(layout.aux_size(lay)), np.empty(layout.aux_size(lay))
     dy, work = np.empty(layout.state_size(lay)), np.empty(m.work_size(lay))
-    segment = np.searchsorted(inputs.seg_times, result.time_min, side="right") - 1
-    for y, k in zip(result.states, np.clip(segment, 0, len(inputs.params) - 1), strict=True):
+    for y, k in zip(result.states, inputs.segment_at(result.time_min), strict=True):
         m.evaluate(y, inputs.params[k], lay, dy, full, work)
         m.outputs(y, inputs.params[k], lay, only, work)
         assert np.array_equal(full, only)

@@ -74,6 +74,12 @@ class ModelInputs:
     circuit_min_stpd: float
     circuit_max_stpd: float
 
+    def segment_at(self, time_min: np.ndarray) -> np.ndarray:
+        """Index (int64) of the plan segment in force at each of ``time_min`` (min); the
+        plan's end belongs to the last segment."""
+        index = np.searchsorted(self.seg_times, time_min, side="right") - 1
+        return np.clip(index, 0, len(self.params) - 1).astype(np.int64)
+
 
 def _soluble_gases(vaporizer: Vaporizer) -> tuple[SolubleGas, ...]:
     return (NITROGEN, NITROUS_OXIDE, vaporizer.properties)

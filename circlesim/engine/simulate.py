@@ -122,8 +122,7 @@ def build_result(inputs: ModelInputs, t_out: np.ndarray, states: np.ndarray,
     """Assemble a :class:`Result` from integrated states (outputs computed by the model)."""
     lay = inputs.lay
     G, S, C = (int(v) for v in lay[:3])
-    seg_index = np.clip(np.searchsorted(inputs.seg_times, t_out, side="right") - 1, 0,
-                        len(inputs.params) - 1).astype(np.int64)
+    seg_index = inputs.segment_at(t_out)
     aux = m.auxiliary_series(states, inputs.params, seg_index, lay)
     a = layout.aux_slices(lay)
     sc = aux[:, a["scalars"]]

@@ -275,7 +275,7 @@ def run_band(scenario: Scenario, settings: BandSettings | None = None, *,
             "fio2": batch.inspired[:, :, batch.gas_index("oxygen")]},
             batch.agent_delivered_ml[:, -1])
 
-    parts_of = 1 if pool is None else min(int(chunks), len(patients))
+    parts_of = 1 if pool is None else min(chunks, len(patients))
     cuts = np.linspace(0, len(patients), parts_of + 1).astype(int)
     parts = list((map if pool is None else pool.map)(
         integrate, [range(a, b) for a, b in itertools.pairwise(cuts)]))
