@@ -284,22 +284,20 @@ class Result:
         return np.asarray(fraction) * self.dry_pressure_kpa
 
     @cached_property
-    def _segment_lookup(self) -> tuple[tuple, np.ndarray]:
-        """The plan's segments and the segment in force at each output time (made once)."""
-        segments = self.plan.segments(self.patient.default_tidal_volume_ml,
-                                      self.patient.default_rate_per_min, self.circuit.valve)
-        return segments, self.segment_index
+    def segments(self) -> tuple:
+        """The plan's segments for this patient and circuit (:meth:`~circlesim.domain.plan.
+        Plan.segments`); ``segment_index`` points into them."""
+        return self.plan.segments(self.patient.default_tidal_volume_ml,
+                                  self.patient.default_rate_per_min, self.circuit.valve)
 
     def segment_values(self, setting: str) -> np.ndarray:
         """A plan setting (a :class:`~circlesim.domain.plan.Segment` field) at each output time."""
-        segments, index = self._segment_lookup
-        return np.array([getattr(s, setting) for s in segments])[index]
+        return np.array([getattr(s, setting) for s in self.segments])[self.segment_index]
 
     @property
     def valve_closed(self) -> np.ndarray:
         """Whether the pressure-limiting valve is closed at each output time, shape (T,)."""
-        segments, index = self._segment_lookup
-        return np.array([s.valve == "closed" for s in segments])[index]
+        return np.array([s.valve == "closed" for s in self.segments])[self.segment_index]
 
     @property
     def fresh_gas_l_min(self) -> np.ndarray:

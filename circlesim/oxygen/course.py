@@ -87,12 +87,7 @@ def course_of_result(result: Result, *, fio2_threshold: float = 0.30) -> OxygenC
     """Attach the mass balance to a finished simulation (any plan)."""
     threshold = check_threshold(fio2_threshold, "course_of_result")
     setup = Setup(result.patient, result.circuit, result.vaporizer, result.absorber)
-    p = result.patient
-    segments = result.plan.segments(p.default_tidal_volume_ml, p.default_rate_per_min,
-                                     result.circuit.valve)
-    starts = np.array([s.start_min for s in segments])
-    index = np.clip(np.searchsorted(starts, result.time_min, side="right") - 1, 0,
-                    len(segments) - 1)
+    segments, index = result.segments, result.segment_index
     fresh = result.fresh_gas_by_gas_stpd
     uptake = result.uptake_stpd
     g = {name: result.gas_index(name) for name in ("oxygen", "nitrogen", "nitrous_oxide")}
