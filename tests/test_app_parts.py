@@ -106,23 +106,44 @@ def test_outcome_table_single_plan():
     assert "Lowest FIO2" in labels and "Liquid agent used" in labels
 
 
-def test_figures_import_plotly_from_the_published_address(monkeypatch):
+def test_figures_are_drawn_with_the_published_plotly_build(monkeypatch):
     import json
 
     import plotly.graph_objects as go
+    import pytest
 
     from circlesim.app import plotly_bundle
 
     # Outside circlesim's server (JupyterLab, plain Voilà): plotly's own FigureWidget.
     monkeypatch.delenv(plotly_bundle.BUNDLE_ADDRESS_ENV, raising=False)
     assert plotly_bundle.figure_widget_class() is go.FigureWidget
-    # The published file is plotly's widget code, where the server publishes it.
+    # The published file is the cartesian plotly.js build of the stated version.
     address = plotly_bundle.bundle_address()
     name = address.removeprefix("voila/static/").split("?")[0]
-    assert (plotly_bundle.bundle_directory() / name).stat().st_size > 1_000_000
-    # Under the server: a FigureWidget whose front-end code imports that address.
+    build = plotly_bundle.bundle_directory() / name
+    assert 1_000_000 < build.stat().st_size < 2_000_000
+    header = build.read_text(encoding="utf-8")[:200]
+    assert f"plotly.js (cartesian - minified) v{plotly_bundle.PLOTLY_JS_VERSION}" in header
+    # Under the server: a FigureWidget whose front end runs the build from that address.
     monkeypatch.setenv(plotly_bundle.BUNDLE_ADDRESS_ENV, address)
     widget = plotly_bundle.figure_widget_class()(go.Figure(go.Scatter(x=[0, 1], y=[1, 2])))
     assert isinstance(widget, go.FigureWidget)
-    assert json.dumps(address) in widget._esm and len(widget._esm) < 1000
+    assert json.dumps(address) in widget._esm and "__PLOTLY_ADDRESS__" not in widget._esm
     assert widget.data[0].y == (1, 2)
+    # A trace the build cannot draw is refused by name, made with the figure or added later.
+    with pytest.raises(ValueError, match="'scattergl'"):
+        plotly_bundle.figure_widget_class()(go.Figure(go.Scattergl(x=[0, 1], y=[1, 2])))
+    with pytest.raises(ValueError, match="'scatterpolar'"):
+        widget.add_trace(go.Scatterpolar(r=[1, 2], theta=[0, 90]))
+    widget.add_trace(go.Heatmap(z=[[1, 2], [3, 4]]))
+    assert [t.type for t in widget.data] == ["scatter", "heatmap"]
+
+
+def test_build_serves_plotly_of_the_same_major_version():
+    from circlesim.app.plotly_bundle import PLOTLY_JS_VERSION, build_fits_plotly
+
+    major = int(PLOTLY_JS_VERSION.split(".")[0])
+    assert build_fits_plotly(PLOTLY_JS_VERSION)
+    assert build_fits_plotly(f"{major}.99.0")
+    assert not build_fits_plotly(f"{major - 1}.9.0")
+    assert not build_fits_plotly(f"{major + 1}.0.0")

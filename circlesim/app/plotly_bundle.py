@@ -1,17 +1,23 @@
-"""plotly.js for the planner's figures, loaded once per page and early.
+"""plotly.js for the planner's figures: a lighter build, loaded once per page.
 
-Each plotly ``FigureWidget`` carries its own copy of plotly's widget code (about 5 MB) in its
-state; the browser receives it over the kernel's websocket and runs it as a module for every
-figure. Running it costs about 1–1.4 s on a 2-core machine, and it can only start once the
-widget's state has arrived, so it sits on the path to the first drawn figure.
+plotly's ``FigureWidget`` brings its own front end with the full plotly.js inside (about
+5 MB); on a 2-core machine the browser takes 1.2 s to load and start it, on the path to the
+first drawn figure. The planner only draws cartesian traces, so when it is served by
+:mod:`circlesim.app.serving` the figures are drawn with the cartesian build of plotly.js
+(``static/plotly-cartesian.min.js``: 1.5 MB, started in about 0.5 s):
 
-When the planner is served by :mod:`circlesim.app.serving`, the server publishes plotly's
-widget code as a static file (:func:`bundle_directory`), the page starts loading it while the
-rest of the page loads (``circlesim/app/page/index.html.j2``), and the figures are made with
-:func:`figure_widget_class`, whose front-end code imports that same address instead of
-carrying the code: the browser fetches and runs it once, and the figures find it ready. Where
-the server does not publish it (JupyterLab, a plain ``voila``), the figures are plotly's own
-``FigureWidget``.
+* the server publishes the ``static`` folder (:func:`bundle_directory`) and the page starts
+  fetching the build while the rest of the page loads (``circlesim/app/page/index.html.j2``);
+* the figures are made with :func:`figure_widget_class`: still plotly's Python
+  ``FigureWidget``, with our front end (``static/figure_front.js``), which runs the build from
+  that address once per page and speaks the widget's messages.
+
+Where the server does not publish the build (JupyterLab, a plain ``voila``), or where the
+installed plotly expects another major version of plotly.js (:func:`build_fits_plotly`), the
+figures are plotly's own ``FigureWidget``.
+
+The build is the ``plotly.js-cartesian-dist-min`` package, version :data:`PLOTLY_JS_VERSION`,
+from the npm registry, unchanged (MIT licence: ``static/plotly-cartesian.LICENSE.txt``).
 """
 
 from __future__ import annotations
@@ -19,88 +25,89 @@ from __future__ import annotations
 import functools
 import json
 import os
+from collections.abc import Iterable
 from pathlib import Path
 
-__all__ = ["BUNDLE_ADDRESS_ENV", "bundle_address", "bundle_directory", "figure_widget_class"]
+__all__ = ["BUNDLE_ADDRESS_ENV", "CARTESIAN_TRACES", "PLOTLY_JS_VERSION", "build_fits_plotly",
+           "bundle_address", "bundle_directory", "check_trace_types", "figure_widget_class"]
 
-#: Set (by the server, for its kernels) to the address of plotly's widget code relative to the
+#: Set (by the server, for its kernels) to the address of the plotly.js build relative to the
 #: server's base URL.
 BUNDLE_ADDRESS_ENV = "CIRCLESIM_PLOTLY_BUNDLE"
 
-_BUNDLE_FILE = "widgetbundle.js"
+#: Version of the plotly.js build in ``static/``.
+PLOTLY_JS_VERSION = "4.1.1"
 
-# The figure's front-end code: import plotly's widget code from the published address (resolved
-# against the page's base URL, as the page's own preload is) and hand on its widget, drawing
-# each view only once its element is on the page. (Brought in its own copy, the code took a
-# second to start, by which time the element was always placed; imported from the page's
-# module map it starts at once, and plotly measures legend text as zero wide in an element not
-# yet placed.)
-_ESM_TEMPLATE = """
-const page = JSON.parse(document.getElementById("jupyter-config-data")?.textContent ?? "{}");
-const base = new URL(page.baseUrl ?? "/", document.baseURI);
-const plotly = (await import(new URL(%s, base).href)).default;
+#: Trace types the build draws (its package's README).
+CARTESIAN_TRACES = frozenset({"bar", "box", "contour", "heatmap", "histogram", "histogram2d",
+                              "histogram2dcontour", "image", "pie", "scatter", "scatterternary",
+                              "violin"})
 
-export default () => {
-  const widget = typeof plotly === "function" ? plotly() : plotly;
-  return {
-    ...widget,
-    render(context) {
-      let frame = 0;
-      let closed = false;
-      let cleanup = null;
-      const draw = () => {
-        if (closed) return;
-        if (!context.el.isConnected) {
-          frame = requestAnimationFrame(draw);
-          return;
-        }
-        Promise.resolve(widget.render(context)).then((done) => {
-          if (closed && typeof done === "function") done();
-          else cleanup = done;
-        });
-      };
-      draw();
-      return () => {
-        closed = true;
-        cancelAnimationFrame(frame);
-        if (typeof cleanup === "function") cleanup();
-      };
-    },
-  };
-};
-"""
+_STATIC = Path(__file__).parent / "static"
+_BUILD_FILE = "plotly-cartesian.min.js"
+_FRONT_END = _STATIC / "figure_front.js"
 
 
 def bundle_directory() -> Path:
-    """The folder that holds plotly's widget code (``widgetbundle.js``)."""
-    import plotly
-
-    return Path(plotly.__file__).parent / "package_data"
+    """The folder the server publishes: the plotly.js build and its licence."""
+    return _STATIC
 
 
 def bundle_address(static_prefix: str = "voila/static/") -> str:
-    """Address of plotly's widget code relative to the base URL, versioned so that browsers
-    may keep it (e.g. ``"voila/static/widgetbundle.js?v=7.1.0"``)."""
-    import plotly
+    """Address of the plotly.js build relative to the base URL, versioned so that browsers
+    may keep it (e.g. ``"voila/static/plotly-cartesian.min.js?v=4.1.1"``)."""
+    return f"{static_prefix}{_BUILD_FILE}?v={PLOTLY_JS_VERSION}"
 
-    return f"{static_prefix}{_BUNDLE_FILE}?v={plotly.__version__}"
+
+def build_fits_plotly(plotly_js_version: str | None = None) -> bool:
+    """Whether the build suits the installed plotly: the plotly.js it was made for
+    (``plotly_js_version``, by default read from plotly) has the build's major version."""
+    if plotly_js_version is None:
+        from plotly.offline import get_plotlyjs_version
+
+        plotly_js_version = get_plotlyjs_version()
+    return plotly_js_version.split(".")[0] == PLOTLY_JS_VERSION.split(".")[0]
+
+
+def check_trace_types(types: Iterable[str]) -> None:
+    """Raise ``ValueError`` naming any trace type the cartesian build cannot draw."""
+    missing = sorted(set(types) - CARTESIAN_TRACES)
+    if missing:
+        raise ValueError(f"trace type(s) {', '.join(map(repr, missing))} cannot be drawn by "
+                         f"the planner's plotly.js build; it draws {sorted(CARTESIAN_TRACES)}")
 
 
 @functools.cache
 def _published_widget_class(address: str) -> type:
     import plotly.graph_objects as go
 
-    class PublishedBundleFigureWidget(go.FigureWidget):
-        """plotly's ``FigureWidget`` whose front-end code is imported from ``address``."""
+    class CartesianFigureWidget(go.FigureWidget):
+        """plotly's ``FigureWidget`` drawn by circlesim's front end with the plotly.js build
+        published at ``address``."""
 
-        _esm = _ESM_TEMPLATE % json.dumps(address)
+        _esm = _FRONT_END.read_text(encoding="utf-8").replace("__PLOTLY_ADDRESS__",
+                                                               json.dumps(address))
 
-    return PublishedBundleFigureWidget
+        def __init__(self, *args, **kwargs) -> None:
+            super().__init__(*args, **kwargs)
+            try:
+                check_trace_types(trace.type for trace in self.data)
+            except ValueError:
+                self.close()
+                raise
+
+        def add_traces(self, data, *args, **kwargs):
+            traces = data if isinstance(data, list | tuple) else [data]
+            check_trace_types(trace.get("type", "scatter") if isinstance(trace, dict)
+                              else trace.type for trace in traces)
+            return super().add_traces(data, *args, **kwargs)
+
+    return CartesianFigureWidget
 
 
 def figure_widget_class() -> type:
-    """The ``FigureWidget`` class to make figures with: one that imports plotly's widget code
-    from the address the server published (:data:`BUNDLE_ADDRESS_ENV`), or plotly's own."""
+    """The ``FigureWidget`` class to make figures with: one drawn with the plotly.js build
+    the server published (:data:`BUNDLE_ADDRESS_ENV`), or plotly's own."""
     address = os.environ.get(BUNDLE_ADDRESS_ENV, "")
     if not address:
         import plotly.graph_objects as go

@@ -12,11 +12,11 @@ which runs Voilà (:class:`PlannerServer`) with these options:
 * widget updates leave the server without waiting (:class:`NoDelayConnection`): Tornado's
   websockets leave Nagle's algorithm on, so a small message written right after a large one
   can wait for the browser's delayed acknowledgement (about 40 ms);
-* plotly's widget code is published as a static file that the page starts loading at once and
-  the figures import from there (:mod:`circlesim.app.plotly_bundle`), instead of each figure
-  bringing its own copy once the kernel has answered;
+* the cartesian build of plotly.js is published as a static file that the page starts
+  fetching at once, and the figures are drawn with it (:mod:`circlesim.app.plotly_bundle`)
+  instead of with plotly's own front end and its full build;
 * JupyterLab extensions the app does not use are not loaded: plotly's renderer for static
-  figures (several megabytes; the app's figures are widgets that bring their own plotly.js)
+  figures (several megabytes; the app's figures are widgets drawn with the published build)
   and the code-highlighting styles (Voilà shows no code).
 """
 
@@ -31,7 +31,13 @@ from pathlib import Path
 from jupyter_server.services.kernels.connection.channels import ZMQChannelsWebsocketConnection
 from voila.app import Voila
 
-from circlesim.app.plotly_bundle import BUNDLE_ADDRESS_ENV, bundle_address, bundle_directory
+from circlesim.app.plotly_bundle import (
+    BUNDLE_ADDRESS_ENV,
+    PLOTLY_JS_VERSION,
+    build_fits_plotly,
+    bundle_address,
+    bundle_directory,
+)
 
 __all__ = ["UNUSED_EXTENSIONS", "NoDelayConnection", "PlannerServer", "main", "voila_command",
            "voila_options"]
@@ -53,16 +59,22 @@ class NoDelayConnection(ZMQChannelsWebsocketConnection):
 
 
 class PlannerServer(Voila):
-    """Voilà that publishes plotly's widget code and serves the planner's page template.
+    """Voilà that publishes the plotly.js build and serves the planner's page template.
 
-    The kernels it starts find the code's address in :data:`~circlesim.app.plotly_bundle.
-    BUNDLE_ADDRESS_ENV`, so that the planner's figures import it instead of carrying it.
+    The kernels it starts find the build's address in :data:`~circlesim.app.plotly_bundle.
+    BUNDLE_ADDRESS_ENV`, so that the planner's figures are drawn with it. If the installed
+    plotly expects another major version of plotly.js, the page and the figures are plotly's
+    own.
     """
 
     def setup_template_dirs(self) -> None:
         super().setup_template_dirs()
-        address = bundle_address()
         self.template_paths.insert(0, str(PAGE_TEMPLATE_DIR))
+        if not build_fits_plotly():
+            self.log.warning("the installed plotly expects plotly.js other than %s: the "
+                             "figures use plotly's own front end", PLOTLY_JS_VERSION)
+            return
+        address = bundle_address()
         self.static_paths.append(str(bundle_directory()))
         # the page renderer reads extra template resources from the configuration itself
         resources = dict(self.config.VoilaConfiguration.get("resources", {}))
