@@ -3,9 +3,9 @@
 The planner's second figure (N2O and N2, flows, liquid agent) is only made once the page shows
 the first: the page starts plotly.js and draws each figure on its one main thread, and a plotly
 ``FigureWidget`` not served through :mod:`circlesim.app.plotly_bundle` brings its own copy of
-plotly's front end (about 5 MB), so making the second figure up front would hold up the first. :class:`FigureShown` is an invisible widget whose front end
-waits until a figure has been drawn in the app and then sends one message, which calls
-``on_shown``.
+plotly's front end (about 5 MB), so making the second figure up front would hold up the first.
+:class:`FigureShown` is an invisible widget whose front end waits until a figure has been drawn
+in the app and then sends one message, which calls ``on_shown``.
 """
 
 from __future__ import annotations
