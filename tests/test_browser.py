@@ -475,6 +475,8 @@ def test_planner_in_browser(planner_url, browser_page, shots, tmp_path):
     resources = page.evaluate("() => performance.getEntriesByType('resource').map((r) => r.name)")
     assert sum("/plotly-cartesian.min.js" in name for name in resources) == 1, resources
     assert not any("widgetbundle" in name for name in resources), resources
+    traces = page.evaluate("() => Object.keys(window.Plotly.PlotSchema.get().traces)")
+    assert "scatter" in traces and "contour" in traces and "scatter3d" not in traces, traces
     # ... asked for by the page itself as it started (circlesim/app/page/index.html.j2)
     assert page.locator("script#circlesim-plotly[src*='/plotly-cartesian.min.js']").count() == 1
     assert not errors, errors

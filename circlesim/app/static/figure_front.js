@@ -151,7 +151,10 @@ export default () => {
       (m) => moveTraces(figure.data, m.current_trace_inds, m.new_trace_inds),
       (P, gd, m) => P.moveTraces(gd, m.current_trace_inds, m.new_trace_inds)],
     _py2js_animate: [
-      (m) => { applyRestyle(figure.data, Object.assign({}, ...(m.style_data ?? [])), m.style_traces);
+      (m) => { // style_data[k]: {path: value} for trace style_traces[k]
+        (m.style_data ?? []).forEach((style, k) => applyRestyle(figure.data,
+          Object.fromEntries(Object.entries(style).map(([path, value]) => [path, [value]])),
+          [m.style_traces[k]]));
         applyRelayout(figure.layout, m.layout_data); },
       (P, gd, m) => P.animate(gd, { data: m.style_data, layout: m.layout_data,
         traces: m.style_traces }, m.animation_opts)],
