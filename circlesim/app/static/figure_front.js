@@ -1,6 +1,7 @@
 // The planner's figures in the browser: the front end of plotly's Python `FigureWidget`,
 // drawn with the cartesian build of plotly.js served beside it (a third of the full build's
-// size and start-up time). circlesim.app.plotly_bundle fills in PLOTLY_ADDRESS.
+// size; it starts in under half the time). circlesim.app.plotly_bundle fills in
+// PLOTLY_ADDRESS.
 //
 // The kernel sends the figure (`_widget_data`, `_widget_layout`, `_config`) and then edits as
 // `_py2js_*` messages; this module keeps the figure as the kernel knows it, applies each edit to
