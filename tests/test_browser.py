@@ -22,6 +22,7 @@ pictures on purpose.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import signal
@@ -30,6 +31,7 @@ import statistics
 import subprocess
 import time
 import urllib.request
+from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
@@ -63,9 +65,10 @@ def _missing(reason: str) -> None:
                 "test.")
 
 
-@pytest.fixture(scope="module")
-def browser_page():
-    """A headless Chromium page that can reach only 127.0.0.1."""
+@contextlib.contextmanager
+def chromium() -> Iterator:
+    """A headless Chromium (Playwright ``Browser``) that can reach only 127.0.0.1; skips the
+    test, or fails it under CIRCLESIM_REQUIRE_BROWSER=1, where there is none."""
     if not CHROMIUM.exists():
         _missing(f"{CHROMIUM} is not installed")
     try:
@@ -75,10 +78,19 @@ def browser_page():
     os.environ.setdefault("PLAYWRIGHT_SKIP_BROWSER_DOWNLOAD", "1")
     with sync_playwright() as pw:
         browser = pw.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
+        try:
+            yield browser
+        finally:
+            browser.close()
+
+
+@pytest.fixture(scope="module")
+def browser_page():
+    """A headless Chromium page that can reach only 127.0.0.1."""
+    with chromium() as browser:
         page = browser.new_page(viewport=VIEWPORT)
         page.set_default_timeout(120_000)
         yield page
-        browser.close()
 
 
 @pytest.fixture(scope="module")

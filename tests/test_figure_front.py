@@ -17,7 +17,7 @@ import json
 import threading
 
 import pytest
-from test_browser import CHROMIUM, CHROMIUM_ARGS, _missing
+from test_browser import chromium
 
 from circlesim.app.plotly_bundle import bundle_address, bundle_directory
 
@@ -108,23 +108,15 @@ _RUN = """async ([source, figure, edits]) => {
 @pytest.fixture(scope="module")
 def static_page():
     """A Chromium page on a loopback server that publishes the planner's static folder."""
-    if not CHROMIUM.exists():
-        _missing(f"{CHROMIUM} is not installed")
-    try:
-        from playwright.sync_api import sync_playwright
-    except ImportError:
-        _missing("the playwright package is not installed")
     handler = functools.partial(_QuietHandler, directory=str(bundle_directory()))
     server = http.server.ThreadingHTTPServer(("127.0.0.1", 0), handler)
     threading.Thread(target=server.serve_forever, daemon=True).start()
     try:
-        with sync_playwright() as pw:
-            browser = pw.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
+        with chromium() as browser:
             page = browser.new_page()
             page.goto(f"http://127.0.0.1:{server.server_address[1]}/"
                       f"plotly-cartesian.LICENSE.txt")
             yield page
-            browser.close()
     finally:
         server.shutdown()
         server.server_close()
