@@ -108,6 +108,7 @@ def test_outcome_table_single_plan():
 
 def test_figures_are_drawn_with_the_published_plotly_build(monkeypatch):
     import json
+    from pathlib import Path
 
     import plotly.graph_objects as go
     import pytest
@@ -117,7 +118,10 @@ def test_figures_are_drawn_with_the_published_plotly_build(monkeypatch):
     # Outside circlesim's server (JupyterLab, plain Voilà): plotly's own FigureWidget.
     monkeypatch.delenv(plotly_bundle.BUNDLE_ADDRESS_ENV, raising=False)
     assert plotly_bundle.figure_widget_class() is go.FigureWidget
-    # The published file is the cartesian plotly.js build of the stated version.
+    # The published file is the cartesian plotly.js build of the stated version, unpacked
+    # from the compressed copy in the package.
+    packed = Path(plotly_bundle.__file__).parent / "static" / "plotly-cartesian.min.js.gz"
+    assert packed.stat().st_size < 600_000
     address = plotly_bundle.bundle_address()
     name = address.removeprefix("voila/static/").split("?")[0]
     build = plotly_bundle.bundle_directory() / name

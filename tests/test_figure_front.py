@@ -13,13 +13,17 @@ from __future__ import annotations
 
 import functools
 import http.server
-import json
 import threading
 
 import pytest
 from test_browser import chromium
 
-from circlesim.app.plotly_bundle import bundle_address, bundle_directory
+from circlesim.app.plotly_bundle import (
+    BUNDLE_ADDRESS_ENV,
+    bundle_address,
+    bundle_directory,
+    figure_widget_class,
+)
 
 pytestmark = pytest.mark.browser
 
@@ -107,7 +111,7 @@ _RUN = """async ([source, figure, edits]) => {
 
 @pytest.fixture(scope="module")
 def static_page():
-    """A Chromium page on a loopback server that publishes the planner's static folder."""
+    """A Chromium page on a loopback server that publishes the unpacked plotly.js build."""
     handler = functools.partial(_QuietHandler, directory=str(bundle_directory()))
     server = http.server.ThreadingHTTPServer(("127.0.0.1", 0), handler)
     threading.Thread(target=server.serve_forever, daemon=True).start()
@@ -127,10 +131,10 @@ class _QuietHandler(http.server.SimpleHTTPRequestHandler):
         pass
 
 
-def test_front_end_copy_matches_plotly_after_every_kind_of_edit(static_page):
-    address = bundle_address(static_prefix="/")
-    source = (bundle_directory() / "figure_front.js").read_text(encoding="utf-8").replace(
-        "__PLOTLY_ADDRESS__", json.dumps(address))
+def test_front_end_copy_matches_plotly_after_every_kind_of_edit(static_page, monkeypatch):
+    # the front end exactly as the figures carry it, pointed at this server's copy of the build
+    monkeypatch.setenv(BUNDLE_ADDRESS_ENV, bundle_address(static_prefix="/"))
+    source = figure_widget_class()._esm
     errors: list[str] = []
     static_page.on("pageerror", lambda e: errors.append(str(e)))
     static_page.on("console", lambda m: errors.append(m.text)

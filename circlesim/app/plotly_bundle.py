@@ -4,10 +4,12 @@ plotly's ``FigureWidget`` brings its own front end with the full plotly.js insid
 5 MB); on a 2-core machine the browser takes 1.2 s to load and start it, on the path to the
 first drawn figure. The planner only draws cartesian traces, so when it is served by
 :mod:`circlesim.app.serving` the figures are drawn with the cartesian build of plotly.js
-(``static/plotly-cartesian.min.js``: 1.5 MB, started in about 0.5 s):
+(1.5 MB, started in about 0.5 s):
 
-* the server publishes the ``static`` folder (:func:`bundle_directory`) and the page starts
-  fetching the build while the rest of the page loads (``circlesim/app/page/index.html.j2``);
+* the build ships compressed (``static/plotly-cartesian.min.js.gz``, 0.5 MB: third-party code
+  stays out of our searchable source); the server unpacks it once into a temporary folder
+  (:func:`bundle_directory`) that it publishes, and the page runs the build while the rest of
+  the page loads (``circlesim/app/page/index.html.j2``);
 * the figures are made with :func:`figure_widget_class`: still plotly's Python
   ``FigureWidget``, with our front end (``static/figure_front.js``), which runs the build from
   that address once per page and speaks the widget's messages.
@@ -17,14 +19,18 @@ installed plotly expects another major version of plotly.js (:func:`build_fits_p
 figures are plotly's own ``FigureWidget``.
 
 The build is the ``plotly.js-cartesian-dist-min`` package, version :data:`PLOTLY_JS_VERSION`,
-from the npm registry, unchanged (MIT licence: ``static/plotly-cartesian.LICENSE.txt``).
+from the npm registry, unchanged apart from the compression (``gzip -9 -n``; MIT licence:
+``static/plotly-cartesian.LICENSE.txt``).
 """
 
 from __future__ import annotations
 
 import functools
+import gzip
 import json
 import os
+import shutil
+import tempfile
 from collections.abc import Iterable
 from pathlib import Path
 
@@ -45,12 +51,27 @@ CARTESIAN_TRACES = frozenset({"bar", "box", "contour", "heatmap", "histogram", "
 
 _STATIC = Path(__file__).parent / "static"
 _BUILD_FILE = "plotly-cartesian.min.js"
+_BUILD_ARCHIVE = _STATIC / f"{_BUILD_FILE}.gz"
+_LICENCE = _STATIC / "plotly-cartesian.LICENSE.txt"
 _FRONT_END = _STATIC / "figure_front.js"
 
 
+#: The unpacked build's folder, kept for the life of the process.
+_keep: list[tempfile.TemporaryDirectory] = []
+
+
+@functools.cache
 def bundle_directory() -> Path:
-    """The folder the server publishes: the plotly.js build and its licence."""
-    return _STATIC
+    """The folder the server publishes: the unpacked plotly.js build and its licence, in a
+    temporary folder made once per process and removed when the process ends."""
+    folder = tempfile.TemporaryDirectory(prefix="circlesim-plotly-")
+    _keep.append(folder)  # alive (and not yet cleaned up) while the process runs
+    path = Path(folder.name)
+    with gzip.open(_BUILD_ARCHIVE, "rb") as packed, (path / _BUILD_FILE).open("wb") as out:
+        shutil.copyfileobj(packed, out)
+    shutil.copy(_LICENCE, path / _LICENCE.name)
+    return path
+
 
 
 def bundle_address(static_prefix: str = "voila/static/") -> str:
