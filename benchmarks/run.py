@@ -134,8 +134,8 @@ def relative_difference(states: np.ndarray, reference: np.ndarray, inputs,
     seg = inputs.segment_at(t_out)
 
     def series(s):
-        fio2 = m.auxiliary_series(s, inputs.params, seg, lay)[:, layout.aux_slices(lay)[
-            "inspired"]][:, layout.O2]
+        aux = m.auxiliary_series(s, inputs.params, seg, lay, layout.dims(lay))
+        fio2 = aux[:, layout.aux_slices(lay)["inspired"]][:, layout.O2]
         return np.column_stack([s[:, layout.state_slices(lay)["alveolar"]], fio2])
 
     a, b = series(states), series(reference)
@@ -152,7 +152,7 @@ def bench_single(repeats: int) -> list[tuple]:
 
     def bare():
         return integrate(inputs.y0, inputs.params, inputs.seg_times, inputs.jumps, inputs.lay,
-                         t_out, inputs.atol, 1e-6, 5.0, MAX_STEPS)
+                         layout.dims(inputs.lay), t_out, inputs.atol, 1e-6, 5.0, MAX_STEPS)
 
     # parts of the overhead, timed in the same loop: the model's outputs at every output time,
     # the alert rules on a finished result, and building the model's arrays
@@ -162,7 +162,8 @@ def bench_single(repeats: int) -> list[tuple]:
     rules = default_rules()
     timings = interleaved_medians(
         [lambda: cs.simulate(patient, circuit, plan, vaporizer=vaporizer), bare,
-         lambda: m.auxiliary_series(states, inputs.params, segment, inputs.lay),
+         lambda: m.auxiliary_series(states, inputs.params, segment, inputs.lay,
+                                   layout.dims(inputs.lay)),
          lambda: evaluate_alerts(result, rules),
          lambda: assemble(patient, circuit, cs.Absorber(), vaporizer, plan)], 2 * repeats)
     (t_sim, c_sim, _), (t_bare, c_bare, (ours, _, _)) = timings[:2]

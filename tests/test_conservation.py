@@ -92,6 +92,6 @@ def test_outputs_without_derivatives_are_those_of_the_full_model(case):
     full, only = np.empty(layout.aux_size(lay)), np.empty(layout.aux_size(lay))
     dy, work = np.empty(layout.state_size(lay)), np.empty(m.work_size(lay))
     for y, k in zip(result.states, inputs.segment_at(result.time_min), strict=True):
-        m.evaluate(y, inputs.params[k], lay, dy, full, work)
-        m.outputs(y, inputs.params[k], lay, only, work)
+        m.evaluate(y, inputs.params[k], lay, layout.dims(lay), dy, full, work)
+        m.outputs(y, inputs.params[k], lay, layout.dims(lay), only, work)
         assert np.array_equal(full, only)

@@ -52,26 +52,28 @@ H_MAX_MIN = 5.0
 
 
 @njit(cache=True, error_model="numpy")
-def _auxiliary_member(states, params, seg_index, lay, out):
+def _auxiliary_member(states, params, seg_index, lay, dims, out):
     """The model's auxiliary outputs of one member, written into ``out`` (no temporaries)."""
     work = np.empty(m.work_size(lay))
     for i in range(states.shape[0]):
-        m.outputs(states[i], params[seg_index[i]], lay, out[i], work)
+        m.outputs(states[i], params[seg_index[i]], lay, dims, out[i], work)
 
 
 @njit(cache=True, parallel=True, error_model="numpy", nogil=True)
-def _auxiliary_parallel(states, params, seg_index, lay):
+def _auxiliary_parallel(states, params, seg_index, lay, dims):
     out = np.empty((states.shape[0], states.shape[1], lay[11]))
+    gases, soluble, tissues, links = dims  # numba's parallel loop cannot take nested tuples
     for b in prange(states.shape[0]):
-        _auxiliary_member(states[b], params[b], seg_index[b], lay, out[b])
+        _auxiliary_member(states[b], params[b], seg_index[b], lay,
+                          (gases, soluble, tissues, links), out[b])
     return out
 
 
 @njit(cache=True, error_model="numpy", nogil=True)
-def _auxiliary_serial(states, params, seg_index, lay):
+def _auxiliary_serial(states, params, seg_index, lay, dims):
     out = np.empty((states.shape[0], states.shape[1], lay[11]))
     for b in range(states.shape[0]):
-        _auxiliary_member(states[b], params[b], seg_index[b], lay, out[b])
+        _auxiliary_member(states[b], params[b], seg_index[b], lay, dims, out[b])
     return out
 
 
@@ -187,8 +189,9 @@ def simulate_batch(patient: Patient | Sequence[Patient], circuit: Circuit | Sequ
     t_out = output_times(duration, output_interval_min, step_times)
     y0, params, seg_times, jumps = inputs.y0, inputs.params, inputs.seg_times, inputs.jumps
     integrate = integrate_batch if parallel else integrate_batch_serial
-    states, final, stats = integrate(y0, params, seg_times, jumps, first.lay, t_out, first.atol,
-                                     rtol, H_MAX_MIN, MAX_STEPS)
+    dims = layout.dims(first.lay)
+    states, final, stats = integrate(y0, params, seg_times, jumps, first.lay, dims, t_out,
+                                     first.atol, rtol, H_MAX_MIN, MAX_STEPS)
     failed = np.flatnonzero(stats[:, 3] != 0)
     if failed.size:
         b = int(failed[0])
@@ -199,7 +202,7 @@ def simulate_batch(patient: Patient | Sequence[Patient], circuit: Circuit | Sequ
         seg_index[members] = np.searchsorted(grp.seg_times, t_out, side="right") - 1
     np.clip(seg_index, 0, params.shape[1] - 1, out=seg_index)
     auxiliary = _auxiliary_parallel if parallel else _auxiliary_serial
-    aux = auxiliary(states, params, seg_index, first.lay)
+    aux = auxiliary(states, params, seg_index, first.lay, dims)
     return BatchResult(
         time_min=t_out, gases=first.gases, soluble_gases=first.gases[layout.FIRST_SOLUBLE:],
         tissue_names=first.tissue_names, tissue_labels=first.tissue_labels, states=states,

@@ -30,6 +30,7 @@ by the ``AUX_*`` constants (:func:`aux_slices`).
 from __future__ import annotations
 
 import numpy as np
+from numba import njit
 
 # ---- gas order -------------------------------------------------------------------------
 O2, CO2, N2, N2O = 0, 1, 2, 3
@@ -85,6 +86,35 @@ N_AUX_SCALARS = 10
 
 
 # ---- layout ----------------------------------------------------------------------------
+@njit(cache=True, inline="always")
+def offsets(G: int, S: int, C: int, L: int) -> tuple[int, int, int, int, int, int, int, int]:
+    """Offsets and lengths of the parameter, state and output vectors for given sizes.
+
+    Parameters
+    ----------
+    G, S, C, L : int
+        Gases, soluble gases, tissue compartments and intertissue links.
+
+    Returns
+    -------
+    tuple of int
+        Offsets in ``p`` of the fresh gas, blood/gas coefficients, tissue flows, tissue
+        capacities and link conductances, then the lengths of ``p``, ``y`` and ``aux``.
+        Compiled (and inlined into the model), so that sizes known when compiling give
+        constant offsets there.
+    """
+    off_fresh = N_SCALARS
+    off_lambda = off_fresh + G
+    off_flow = off_lambda + S
+    off_capacity = off_flow + C
+    off_links = off_capacity + C * S
+    n_params = off_links + L * S
+    n_state = 2 * G + C * S + 1 + N_ACCUMULATORS * G
+    n_aux = 4 * G + 2 * S + N_AUX_SCALARS
+    return (off_fresh, off_lambda, off_flow, off_capacity, off_links, n_params, n_state,
+            n_aux)
+
+
 def layout(n_gases: int, n_tissues: int, links_from, links_to) -> np.ndarray:
     """Integer layout array describing the sizes and offsets of ``y`` and ``p``.
 
@@ -111,17 +141,18 @@ def layout(n_gases: int, n_tissues: int, links_from, links_to) -> np.ndarray:
     S = G - FIRST_SOLUBLE
     C = n_tissues
     L = links_from.size
-    off_fresh = N_SCALARS
-    off_lambda = off_fresh + G
-    off_flow = off_lambda + S
-    off_capacity = off_flow + C
-    off_links = off_capacity + C * S
-    n_params = off_links + L * S
-    n_state = 2 * G + C * S + 1 + N_ACCUMULATORS * G
-    n_aux = 4 * G + 2 * S + N_AUX_SCALARS
-    head = [G, S, C, L, off_fresh, off_lambda, off_flow, off_capacity, off_links, n_params,
-            n_state, n_aux]
+    head = [G, S, C, L, *offsets(G, S, C, L)]
     return np.concatenate([np.asarray(head, dtype=np.int64), links_from, links_to])
+
+
+def dims(lay: np.ndarray) -> tuple[tuple[int, ...], ...]:
+    """The sizes G, S, C and L of ``lay`` as the lengths of four tuples, for the compiled code.
+
+    numba types a tuple by its length, so compiled code that reads the sizes as
+    ``len(dims[0])`` … is compiled once per layout with the sizes as constants.
+    """
+    G, S, C, L = (int(v) for v in lay[:4])
+    return ((0,) * G, (0,) * S, (0,) * C, (0,) * L)
 
 
 def state_size(lay: np.ndarray) -> int:

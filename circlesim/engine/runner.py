@@ -89,6 +89,7 @@ class Runner:
         self.inputs: ModelInputs = assemble(patient, circuit, absorber, vaporizer, reference)
         lay = self.inputs.lay
         self.lay = lay
+        self.dims = layout.dims(lay)
         n_gas = int(lay[0])
         slices = layout.state_slices(lay)
         #: index in the state of the alveolar (end-tidal) agent fraction
@@ -203,7 +204,7 @@ class Runner:
         params = np.stack([self.row(k) for k in knobs])
         jumps = np.zeros((len(knobs), y.size))
         states, final, stats = integrate(y, params, np.asarray(times, dtype=float), jumps,
-                                         self.lay, np.asarray(t_out, dtype=float),
+                                         self.lay, self.dims, np.asarray(t_out, dtype=float),
                                          self.inputs.atol, self.rtol, H_MAX_MIN, MAX_STEPS)
         self.calls += 1
         if stats[3] != 0:
@@ -233,7 +234,7 @@ class Runner:
         y0 = np.repeat(y[None, :], b, axis=0)
         jumps = np.zeros((b, n, y.size))
         states, final, stats = integrate_batch(y0, params, seg_times, jumps, self.lay,
-                                               np.asarray(t_out, dtype=float),
+                                               self.dims, np.asarray(t_out, dtype=float),
                                                self.inputs.atol, self.rtol, H_MAX_MIN,
                                                MAX_STEPS)
         self.calls += b

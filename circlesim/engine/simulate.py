@@ -78,7 +78,8 @@ def solve_states(inputs: ModelInputs, t_out: np.ndarray, *, method: str = "dopri
     y_start = inputs.y0 if y0 is None else y0
     if method == "dopri5":
         states, final, stats = integrate(y_start, inputs.params, inputs.seg_times, inputs.jumps,
-                                         inputs.lay, t_out, inputs.atol, rtol, 5.0, MAX_STEPS)
+                                         inputs.lay, layout.dims(inputs.lay), t_out, inputs.atol,
+                                         rtol, 5.0, MAX_STEPS)
         status = int(stats[3])
         report = SolverReport("dopri5", status == 0, STATUS_MESSAGES[status], int(stats[0]),
                               int(stats[1]), int(stats[2]))
@@ -123,7 +124,7 @@ def build_result(inputs: ModelInputs, t_out: np.ndarray, states: np.ndarray,
     lay = inputs.lay
     G, S, C = (int(v) for v in lay[:3])
     seg_index = inputs.segment_at(t_out)
-    aux = m.auxiliary_series(states, inputs.params, seg_index, lay)
+    aux = m.auxiliary_series(states, inputs.params, seg_index, lay, layout.dims(lay))
     a = layout.aux_slices(lay)
     sc = aux[:, a["scalars"]]
     sl = layout.state_slices(lay)

@@ -72,7 +72,7 @@ def _error_norm(err, y0, y1, atol, rtol):
 
 
 @njit(cache=True, error_model="numpy")
-def _initial_step(y, f0, p, lay, atol, rtol, h_max, aux, work, f1, scratch):
+def _initial_step(y, f0, p, lay, dims, atol, rtol, h_max, aux, work, f1, scratch):
     n = y.size
     d0 = 0.0
     d1 = 0.0
@@ -86,7 +86,7 @@ def _initial_step(y, f0, p, lay, atol, rtol, h_max, aux, work, f1, scratch):
     h0 = min(h0, h_max)
     for i in range(n):
         work[i] = y[i] + h0 * f0[i]
-    evaluate(work, p, lay, f1, aux, scratch)
+    evaluate(work, p, lay, dims, f1, aux, scratch)
     d2 = 0.0
     for i in range(n):
         scale = atol[i] + rtol * abs(y[i])
@@ -100,7 +100,7 @@ def _initial_step(y, f0, p, lay, atol, rtol, h_max, aux, work, f1, scratch):
 
 
 @njit(cache=True, error_model="numpy")
-def integrate(y0, params, seg_times, jumps, lay, t_out, atol, rtol, h_max, max_steps):
+def integrate(y0, params, seg_times, jumps, lay, dims, t_out, atol, rtol, h_max, max_steps):
     """Integrate a piecewise-constant plan and return the state at the output times.
 
     Parameters
@@ -115,6 +115,9 @@ def integrate(y0, params, seg_times, jumps, lay, t_out, atol, rtol, h_max, max_s
         Added to the state at the start of each segment (e.g. injected vapour).
     lay : ndarray of int64
         Model layout (:func:`circlesim.engine.layout.layout`).
+    dims : tuple of tuples
+        Its sizes, :func:`circlesim.engine.layout.dims`: the code is compiled once per layout
+        with the sizes as constants.
     t_out : ndarray, shape (n_out,)
         Output times, min, non-decreasing, within ``[seg_times[0], seg_times[-1]]``.
     atol : ndarray, shape (n_state,)
@@ -159,9 +162,9 @@ def integrate(y0, params, seg_times, jumps, lay, t_out, atol, rtol, h_max, max_s
         while i_out < n_out and t_out[i_out] <= t:
             states[i_out, :] = y
             i_out += 1
-        evaluate(y, p, lay, k[0], aux, scratch)
+        evaluate(y, p, lay, dims, k[0], aux, scratch)
         stats[0] += 1
-        h = _initial_step(y, k[0], p, lay, atol, rtol, h_max, aux, work, k[1], scratch)
+        h = _initial_step(y, k[0], p, lay, dims, atol, rtol, h_max, aux, work, k[1], scratch)
         stats[0] += 1
         fac_old = 1e-4
         rejected = False
@@ -178,25 +181,25 @@ def integrate(y0, params, seg_times, jumps, lay, t_out, atol, rtol, h_max, max_s
                 h_step = t_end - t
             for i in range(n):
                 work[i] = y[i] + h_step * A21 * k[0, i]
-            evaluate(work, p, lay, k[1], aux, scratch)
+            evaluate(work, p, lay, dims, k[1], aux, scratch)
             for i in range(n):
                 work[i] = y[i] + h_step * (A31 * k[0, i] + A32 * k[1, i])
-            evaluate(work, p, lay, k[2], aux, scratch)
+            evaluate(work, p, lay, dims, k[2], aux, scratch)
             for i in range(n):
                 work[i] = y[i] + h_step * (A41 * k[0, i] + A42 * k[1, i] + A43 * k[2, i])
-            evaluate(work, p, lay, k[3], aux, scratch)
+            evaluate(work, p, lay, dims, k[3], aux, scratch)
             for i in range(n):
                 work[i] = y[i] + h_step * (A51 * k[0, i] + A52 * k[1, i] + A53 * k[2, i]
                                            + A54 * k[3, i])
-            evaluate(work, p, lay, k[4], aux, scratch)
+            evaluate(work, p, lay, dims, k[4], aux, scratch)
             for i in range(n):
                 work[i] = y[i] + h_step * (A61 * k[0, i] + A62 * k[1, i] + A63 * k[2, i]
                                            + A64 * k[3, i] + A65 * k[4, i])
-            evaluate(work, p, lay, k[5], aux, scratch)
+            evaluate(work, p, lay, dims, k[5], aux, scratch)
             for i in range(n):
                 y_new[i] = y[i] + h_step * (A71 * k[0, i] + A73 * k[2, i] + A74 * k[3, i]
                                             + A75 * k[4, i] + A76 * k[5, i])
-            evaluate(y_new, p, lay, k[6], aux, scratch)
+            evaluate(y_new, p, lay, dims, k[6], aux, scratch)
             stats[0] += 6
             for i in range(n):
                 err[i] = h_step * (E1 * k[0, i] + E3 * k[2, i] + E4 * k[3, i] + E5 * k[4, i]
@@ -254,7 +257,7 @@ def integrate(y0, params, seg_times, jumps, lay, t_out, atol, rtol, h_max, max_s
 
 
 @njit(cache=True, parallel=True, error_model="numpy", nogil=True)
-def integrate_batch(y0, params, seg_times, jumps, lay, t_out, atol, rtol, h_max, max_steps):
+def integrate_batch(y0, params, seg_times, jumps, lay, dims, t_out, atol, rtol, h_max, max_steps):
     """:func:`integrate` for many members at once, in parallel over the leading axis.
 
     Parameters
@@ -263,7 +266,7 @@ def integrate_batch(y0, params, seg_times, jumps, lay, t_out, atol, rtol, h_max,
     params : ndarray, shape (batch, n_segments, n_params)
     seg_times : ndarray, shape (batch, n_segments + 1)
     jumps : ndarray, shape (batch, n_segments, n_state)
-    lay, t_out, atol, rtol, h_max, max_steps
+    lay, dims, t_out, atol, rtol, h_max, max_steps
         As for :func:`integrate` (shared by every member).
 
     Returns
@@ -277,9 +280,11 @@ def integrate_batch(y0, params, seg_times, jumps, lay, t_out, atol, rtol, h_max,
     states = np.empty((batch, t_out.size, n))
     final = np.empty((batch, n))
     stats = np.empty((batch, 4), dtype=np.int64)
+    gases, soluble, tissues, links = dims  # numba's parallel loop cannot take nested tuples
     for b in prange(batch):
-        s, f, st = integrate(y0[b], params[b], seg_times[b], jumps[b], lay, t_out, atol,
-                             rtol, h_max, max_steps)
+        s, f, st = integrate(y0[b], params[b], seg_times[b], jumps[b], lay,
+                             (gases, soluble, tissues, links), t_out, atol, rtol, h_max,
+                             max_steps)
         states[b] = s
         final[b] = f
         stats[b] = st
@@ -287,8 +292,8 @@ def integrate_batch(y0, params, seg_times, jumps, lay, t_out, atol, rtol, h_max,
 
 
 @njit(cache=True, error_model="numpy", nogil=True)
-def integrate_batch_serial(y0, params, seg_times, jumps, lay, t_out, atol, rtol, h_max,
-                           max_steps):
+def integrate_batch_serial(y0, params, seg_times, jumps, lay, dims, t_out, atol, rtol,
+                           h_max, max_steps):
     """:func:`integrate_batch` on the calling thread only, one member after another.
 
     For callers that already run in parallel (worker processes, Dask worker threads), where
@@ -302,7 +307,7 @@ def integrate_batch_serial(y0, params, seg_times, jumps, lay, t_out, atol, rtol,
     final = np.empty((batch, n))
     stats = np.empty((batch, 4), dtype=np.int64)
     for b in range(batch):
-        s, f, st = integrate(y0[b], params[b], seg_times[b], jumps[b], lay, t_out, atol,
+        s, f, st = integrate(y0[b], params[b], seg_times[b], jumps[b], lay, dims, t_out, atol,
                              rtol, h_max, max_steps)
         states[b] = s
         final[b] = f
