@@ -84,6 +84,32 @@ def test_local_processes_give_the_same_numbers(people, local):
     _same(run, local)
 
 
+def test_threads_of_this_process_give_the_numbers_of_one_integration(people, local):
+    # one chunk: integrated on numba's threads; chunks of 5 (the fixture): on a thread per core
+    whole = compare_populations(SCENARIOS[:1], people, workers=1, chunk_size=len(people))
+    assert whole[0].where == "this process"
+    _same(whole, local[:1])
+
+
+def _square_or_fail(item, parallel):
+    if item < 0:
+        raise ValueError(f"item {item} is negative")
+    return item * item, parallel
+
+
+def test_threads_keep_the_order_and_raise_the_first_error(monkeypatch):
+    monkeypatch.setattr("circlesim.base.distributed.local_workers", lambda: 3)
+    done = []
+    run = map_chunks(_square_or_fail, range(7), workers=1, threads=True, progress=done.append)
+    assert run.results == [(k * k, False) for k in range(7)]
+    assert run.where == "this process, 3 threads"
+    assert done == [1] * 7
+    alone = map_chunks(_square_or_fail, [3], workers=1, threads=True)
+    assert (alone.results, alone.where) == ([(9, True)], "this process")
+    with pytest.raises(ValueError, match="item -2 is negative"):
+        map_chunks(_square_or_fail, [1, -2, 3], workers=1, threads=True)
+
+
 def _free_port() -> int:
     with socket.socket() as s:
         s.bind(("127.0.0.1", 0))
@@ -102,7 +128,7 @@ def test_unreachable_scheduler_falls_back_only_when_asked(people, local):
     with pytest.warns(RuntimeWarning, match="Running on local processes instead"):
         run = compare_populations(SCENARIOS, people, scheduler=address, fallback_to_local=True,
                                   workers=1, chunk_size=5)
-    assert run[0].where == "this process"
+    assert run[0].where.startswith("this process")
     _same(run, local)
 
 

@@ -10,7 +10,8 @@ says so and the work runs locally. ``docs/population.md`` explains how to start 
 
 The work function is called as ``func(item, parallel)``. ``parallel`` is True only when the
 item runs in this process with the machine to itself, so the function may use numba's threads;
-in worker processes and on a cluster each worker is one thread of work.
+in worker processes, on a cluster and on this process's threads (``threads=True``) each
+worker is one thread of work.
 """
 
 from __future__ import annotations
@@ -20,7 +21,7 @@ import os
 import socket
 import warnings
 from collections.abc import Callable, Sequence
-from concurrent.futures import ProcessPoolExecutor, as_completed
+from concurrent.futures import ProcessPoolExecutor, ThreadPoolExecutor, as_completed
 from typing import Any, NamedTuple
 
 from circlesim.base.validation import InputError, Interval, check_whole_number
@@ -120,6 +121,20 @@ def _run_here(func: Callable, items: Sequence, progress: Callable[[int], Any] | 
     return out
 
 
+def _run_threads(func: Callable, items: Sequence, threads: int,
+                 progress: Callable[[int], Any] | None) -> list:
+    pool = ThreadPoolExecutor(max_workers=threads, thread_name_prefix="circlesim-chunk")
+    try:
+        futures = [pool.submit(func, item, False) for item in items]
+        for future in as_completed(futures):
+            future.result()  # raise the first error at once
+            if progress is not None:
+                progress(1)
+        return [f.result() for f in futures]
+    finally:
+        pool.shutdown(wait=True, cancel_futures=True)
+
+
 def _run_processes(func: Callable, items: Sequence, workers: int,
                    progress: Callable[[int], Any] | None) -> list:
     # "spawn": a fresh interpreter per worker; forking a process that has started numba's
@@ -156,7 +171,7 @@ def map_chunks(func: Callable[[Any, bool], Any], items: Sequence, *,
                scheduler: Any = None, workers: int | None = None,
                fallback_to_local: bool = False,
                progress: Callable[[int], Any] | None = None,
-               timeout_s: float = CONNECT_TIMEOUT_S) -> ChunkRun:
+               timeout_s: float = CONNECT_TIMEOUT_S, threads: bool = False) -> ChunkRun:
     """Apply ``func(item, parallel)`` to every item and return the results in order.
 
     Parameters
@@ -180,6 +195,12 @@ def map_chunks(func: Callable[[Any, bool], Any], items: Sequence, *,
         Called with 1 each time an item finishes.
     timeout_s : float, s
         Time allowed to reach the scheduler.
+    threads : bool
+        In this process, run the items on one thread per core, each called with
+        ``parallel=False``, instead of one after another with ``parallel=True``. For work
+        whose heavy part releases the GIL (the compiled batch integrator): one thread's
+        integration then runs while another does the Python and numpy work of its finished
+        item, where numba's threads would leave a core idle during that work.
 
     Returns
     -------
@@ -211,6 +232,10 @@ def map_chunks(func: Callable[[Any, bool], Any], items: Sequence, *,
     if workers is None and len(items) < 2 * n_workers:
         n_workers = 1  # too little work to pay for starting worker processes
     if n_workers <= 1:
+        cores = min(local_workers(), len(items))
+        if threads and cores > 1:
+            return ChunkRun(_run_threads(func, items, cores, progress),
+                            f"this process, {cores} threads")
         return ChunkRun(_run_here(func, items, progress), "this process")
     return ChunkRun(_run_processes(func, items, n_workers, progress),
                     f"{n_workers} local processes")

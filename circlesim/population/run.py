@@ -184,7 +184,8 @@ def compare_populations(scenarios: Sequence[Scenario], patients: VirtualPatients
     scheduler : str, dask.distributed.Client or None
         None: local processes; a Dask scheduler address or client: that cluster.
     workers : int or None
-        Local worker processes (default one per core; 1: in this process).
+        Local worker processes (default one per core; 1: in this process, on a thread per
+        core).
     fallback_to_local : bool
         Run on local processes, with a warning, if the scheduler cannot be reached.
     chunk_size : int, 1–100,000
@@ -221,7 +222,7 @@ def compare_populations(scenarios: Sequence[Scenario], patients: VirtualPatients
                    float(rtol), horizon, basis)
              for i, s in enumerate(scenarios) for start in range(0, len(members), chunk_size)]
     run = map_chunks(_run_task, tasks, scheduler=scheduler, workers=workers,
-                     fallback_to_local=fallback_to_local, progress=progress)
+                     fallback_to_local=fallback_to_local, progress=progress, threads=True)
     return [_gather(i, s, label, people, tasks, run.results, horizon, basis, run.where)
             for i, (s, label) in enumerate(zip(scenarios, labels, strict=True))]
 
