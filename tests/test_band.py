@@ -100,8 +100,9 @@ def test_threshold_share_is_reported():
 
 
 @pytest.mark.parametrize("kwargs, words", [
-    ({"patients": 19}, "BandSettings.patients must be a number from 20 to 2000 patients; got 19"),
-    ({"patients": 2001}, "BandSettings.patients must be a number from 20 to 2000"),
+    ({"patients": 19},
+     "BandSettings.patients must be a whole number from 20 to 2000 patients; got 19"),
+    ({"patients": 2001}, "BandSettings.patients must be a whole number from 20 to 2000"),
     ({"low_percentile": 0.5}, "BandSettings.low_percentile must be a number from 1 to 99 %"),
     ({"high_percentile": 99.5}, "BandSettings.high_percentile must be a number from 1 to 99"),
     ({"low_percentile": 60, "high_percentile": 40}, "high_percentile must be above"),
@@ -149,7 +150,7 @@ def test_app_shows_band_and_measured_points(tmp_path):
     # bad band settings: the field is named, the band stays
     before = app.band
     app.band_panel.boxes["patients"].value = "5"
-    assert "Similar patients must be a number from 20 to 2000" in app.band_panel.error.value
+    assert "Similar patients must be a whole number from 20 to 2000" in app.band_panel.error.value
     assert app.band is before
     app.band_panel.boxes["patients"].value = "200"
     assert app.band_panel.error.value == ""

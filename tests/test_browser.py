@@ -398,7 +398,7 @@ def test_planner_in_browser(planner_url, browser_page, shots, tmp_path):
     _enter(page, ".cs-band-patients input", 0, "5")
     page.wait_for_selector(".cs-band-error .cs-error")
     text = page.inner_text(".cs-band-error")
-    assert "Similar patients must be a number from 20 to 2000" in text and "got 5" in text
+    assert "Similar patients must be a whole number from 20 to 2000" in text and "got 5" in text
     _enter(page, ".cs-band-patients input", 0, "200")
     page.wait_for_function("() => !document.querySelector('.cs-band-error .cs-error')")
     _enter(page, ".cs-band-high-percentile input", 0, "99.5")

@@ -53,6 +53,8 @@ class Interval:
         When true the bound itself is not allowed.
     optional : bool
         When true ``None`` is allowed and means "use the default".
+    whole : bool
+        When true only whole numbers are allowed (:func:`check_fields` stores them as int).
     """
 
     low: float
@@ -61,6 +63,7 @@ class Interval:
     low_open: bool = False
     high_open: bool = False
     optional: bool = False
+    whole: bool = False
 
     def describe(self) -> str:
         """Human wording of the range, e.g. "a number from 0 to 15 L/min"."""
@@ -154,8 +157,9 @@ def check_whole_number(name: str, value: Any, interval: Interval) -> int:
         isinstance(value, float | np.floating) and float(value).is_integer()))
     if not whole or not interval.contains(float(value)):
         shown = f"{value:g}" if isinstance(value, float) else repr(value)
-        wording = (f"of at least {interval.low:.0f}" if math.isinf(interval.high)
-                   else f"from {interval.low:.0f} to {interval.high:.0f}")
+        unit = f" {interval.unit}" if interval.unit else ""
+        wording = (f"of at least {interval.low:.0f}{unit}" if math.isinf(interval.high)
+                   else f"from {interval.low:.0f} to {interval.high:.0f}{unit}")
         raise InputError(f"{name} must be a whole number {wording}; got {shown}.")
     return int(value)
 
@@ -195,7 +199,10 @@ def check_fields(obj: Any) -> None:
         if constraint is None:
             continue
         value = getattr(obj, f.name)
-        if isinstance(constraint, Interval):
+        if isinstance(constraint, Interval) and constraint.whole:
+            checked = (None if value is None and constraint.optional
+                       else check_whole_number(f"{owner}.{f.name}", value, constraint))
+        elif isinstance(constraint, Interval):
             checked = check_number(owner, f.name, value, constraint)
         else:
             checked = check_choice(owner, f.name, value, constraint.choices)

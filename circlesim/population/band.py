@@ -24,7 +24,7 @@ import functools
 import itertools
 import math
 from concurrent.futures import Executor
-from dataclasses import dataclass, field, fields
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -79,18 +79,14 @@ class BandSettings:
         The same seed draws the same patients.
     """
 
-    patients: int = field(default=200, metadata=bounded(20, 2000, "patients"))
+    patients: int = field(default=200, metadata=bounded(20, 2000, "patients", whole=True))
     low_percentile: float = field(default=5.0, metadata=bounded(1.0, 99.0, "%"))
     high_percentile: float = field(default=95.0, metadata=bounded(1.0, 99.0, "%"))
     spread: float = field(default=1.0, metadata=bounded(0.0, 3.0))
-    seed: int = field(default=20240501, metadata=bounded(0, 2 ** 32 - 1))
+    seed: int = field(default=20240501, metadata=bounded(0, 2 ** 32 - 1, whole=True))
 
     def __post_init__(self) -> None:
         check_fields(self)
-        for f in fields(self):
-            if f.name in ("patients", "seed"):
-                object.__setattr__(self, f.name, check_whole_number(
-                    f"BandSettings.{f.name}", getattr(self, f.name), f.metadata["constraint"]))
         if not self.low_percentile < self.high_percentile:
             raise InputError(f"BandSettings.high_percentile must be above low_percentile "
                              f"({self.low_percentile:g} %); got {self.high_percentile:g}.")
