@@ -19,7 +19,7 @@ Usage::
     ``simulate``; alone and warm, the alerts and the arrays take about half as long).
 (b) 10,000 virtual patients over the same 4-hour plan (output every minute): the wall time of
     a population run (sampling, batch integration, curves and outcomes) in this process on
-    numba's threads and on local worker processes, the per-patient speed-up over the
+    a thread per core and on local worker processes, the per-patient speed-up over the
     references, and the accuracy for a sample of the patients against Radau at rtol 1e-10.
 
 (c) The planner's band: 200 similar patients over a 2-hour plan
