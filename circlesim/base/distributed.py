@@ -21,7 +21,12 @@ import os
 import socket
 import warnings
 from collections.abc import Callable, Sequence
-from concurrent.futures import ProcessPoolExecutor, ThreadPoolExecutor, as_completed
+from concurrent.futures import (
+    Executor,
+    ProcessPoolExecutor,
+    ThreadPoolExecutor,
+    as_completed,
+)
 from typing import Any, NamedTuple
 
 from circlesim.base.validation import InputError, Interval, check_whole_number
@@ -121,18 +126,24 @@ def _run_here(func: Callable, items: Sequence, progress: Callable[[int], Any] | 
     return out
 
 
-def _run_threads(func: Callable, items: Sequence, threads: int,
-                 progress: Callable[[int], Any] | None) -> list:
-    pool = ThreadPoolExecutor(max_workers=threads, thread_name_prefix="circlesim-chunk")
+def _run_pool(pool: Executor, func: Callable, items: Sequence,
+              progress: Callable[[int], Any] | None) -> list:
+    """Every item on ``pool`` as ``func(item, False)``; the first error is raised at once."""
     try:
         futures = [pool.submit(func, item, False) for item in items]
         for future in as_completed(futures):
-            future.result()  # raise the first error at once
+            future.result()
             if progress is not None:
                 progress(1)
         return [f.result() for f in futures]
     finally:
         pool.shutdown(wait=True, cancel_futures=True)
+
+
+def _run_threads(func: Callable, items: Sequence, threads: int,
+                 progress: Callable[[int], Any] | None) -> list:
+    pool = ThreadPoolExecutor(max_workers=threads, thread_name_prefix="circlesim-chunk")
+    return _run_pool(pool, func, items, progress)
 
 
 def _run_processes(func: Callable, items: Sequence, workers: int,
@@ -141,15 +152,7 @@ def _run_processes(func: Callable, items: Sequence, workers: int,
     # threads is not safe.
     context = multiprocessing.get_context("spawn")
     pool = ProcessPoolExecutor(max_workers=workers, mp_context=context)
-    try:
-        futures = [pool.submit(func, item, False) for item in items]
-        for future in as_completed(futures):
-            future.result()  # raise the first error at once
-            if progress is not None:
-                progress(1)
-        return [f.result() for f in futures]
-    finally:
-        pool.shutdown(wait=True, cancel_futures=True)
+    return _run_pool(pool, func, items, progress)
 
 
 def _run_dask(client, func: Callable, items: Sequence,
