@@ -99,3 +99,19 @@ def test_compiled_matches_tight_scipy_reference():
     alv = layout.state_slices(inputs.lay)["alveolar"]
     scale = np.maximum(np.abs(reference[:, alv]), 1e-4)
     assert np.max(np.abs(fast[:, alv] - reference[:, alv]) / scale) < 1e-4
+
+
+def test_sizes_of_another_layout_are_refused():
+    # the compiled code takes its sizes from ``dims``: those of another layout would index
+    # past this layout's arrays, so they are refused
+    from circlesim.engine.solver import integrate
+
+    inputs = _inputs()
+    other = layout.dims(layout.layout(5, 3, [], []))
+    t = np.linspace(0.0, 30.0, 4)
+    with pytest.raises(ValueError, match=r"dims must be layout\.dims"):
+        integrate(inputs.y0, inputs.params, inputs.seg_times, inputs.jumps, inputs.lay, other,
+                  t, inputs.atol, 1e-6, 5.0, 1000)
+    with pytest.raises(ValueError, match=r"dims must be layout\.dims"):
+        m.auxiliary_series(np.tile(inputs.y0, (4, 1)), inputs.params, np.zeros(4, np.int64),
+                           inputs.lay, other)

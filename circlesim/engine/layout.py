@@ -1,8 +1,8 @@
 """The model's array layout: gas order, named indices, and the sizes and slices of the state,
 parameter and output vectors of :mod:`circlesim.engine.model`.
 
-Everything here is plain integers and slices; the equations that use them live in
-:mod:`circlesim.engine.model`.
+Everything here is plain integers and slices (:func:`offsets` is compiled, so that the model
+can inline it); the equations that use them live in :mod:`circlesim.engine.model`.
 
 State vector ``y`` (length :func:`state_size`)
 ----------------------------------------------

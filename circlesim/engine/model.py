@@ -92,6 +92,14 @@ def work_size(lay: np.ndarray) -> int:
     return 6 * lay[0] + 2 * lay[1]
 
 
+@njit(cache=True, error_model="numpy")
+def check_dims(lay: np.ndarray, dims: tuple) -> None:
+    """Raise ValueError unless ``dims`` holds the sizes of ``lay`` (:func:`layout.dims`)."""
+    if (len(dims[0]) != lay[0] or len(dims[1]) != lay[1] or len(dims[2]) != lay[2]
+            or len(dims[3]) != lay[3]):
+        raise ValueError("dims must be layout.dims(lay) of the same layout")
+
+
 # ---- the right-hand side ---------------------------------------------------------------
 @njit(cache=True, error_model="numpy")
 def smoothstep(x: float) -> float:
@@ -381,6 +389,7 @@ def auxiliary_series(states, params, seg_index, lay, dims):
     -------
     ndarray, shape (n_times, n_aux)
     """
+    check_dims(lay, dims)
     n_t = states.shape[0]
     out = np.empty((n_t, lay[11]))
     work = np.empty(work_size(lay))

@@ -22,7 +22,7 @@ from numba import njit, prange
 
 from circlesim.base.compiled_cache import discard_stale_cache
 from circlesim.engine import layout, model
-from circlesim.engine.model import evaluate, work_size
+from circlesim.engine.model import check_dims, evaluate, work_size
 
 discard_stale_cache(__file__, [model.__file__, layout.__file__])
 
@@ -138,6 +138,7 @@ def integrate(y0, params, seg_times, jumps, lay, dims, t_out, atol, rtol, h_max,
         Right-hand-side evaluations, accepted steps, rejected steps, status code
         (see :data:`STATUS_MESSAGES`).
     """
+    check_dims(lay, dims)
     n = y0.size
     n_seg = params.shape[0]
     n_out = t_out.size
